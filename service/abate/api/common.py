@@ -1,0 +1,100 @@
+"""What every resource module shares: fields, list envelopes, ETags, If-Match and links."""
+
+import datetime
+from urllib.parse import urlencode
+
+import marshmallow as ma
+from flask import request
+
+from abate.domain.pagination import paginate
+
+DEFAULT_PAGE_SIZE = 50
+MAX_PAGE_SIZE = 500
+REQUEST_ACTOR = "anonymous"
+REQUEST_SOURCE = "api"
+
+
+class UTCDateTime(ma.fields.DateTime):
+    """An RFC 3339 timestamp in UTC with a Z suffix; the database keeps naive UTC."""
+
+    def _serialize(self, value, attr, obj, **kwargs):
+        if value is None:
+            return None
+        return value.replace(tzinfo=datetime.UTC).isoformat().replace("+00:00", "Z")
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        parsed = super()._deserialize(value, attr, data, **kwargs)
+        if parsed.tzinfo is None:
+            raise self.make_error("invalid", input=value, obj_type="datetime with a time zone offset")
+        return parsed.astimezone(datetime.UTC).replace(tzinfo=None)
+
+
+class PageArgsSchema(ma.Schema):
+    """Cursor pagination: `limit` items from the position `cursor` names."""
+
+    limit = ma.fields.Integer(
+        load_default=DEFAULT_PAGE_SIZE,
+        validate=ma.validate.Range(min=1, max=MAX_PAGE_SIZE),
+        metadata={"description": f"Items per page, 1 to {MAX_PAGE_SIZE} (default {DEFAULT_PAGE_SIZE})."},
+    )
+    cursor = ma.fields.String(metadata={"description": "Opaque position from a previous page's `next` link."})
+
+
+class ReasonSchema(ma.Schema):
+    """A body that carries only the reason for a change."""
+
+    reason = ma.fields.String(
+        required=True, validate=ma.validate.Length(min=1, max=2000), metadata={"description": "Why."}
+    )
+
+
+def list_schema(item_schema):
+    """The envelope {"items": [...], "next": URL or null} around item_schema."""
+    name = item_schema.__name__.removesuffix("Schema") + "ListSchema"
+    return type(
+        name,
+        (ma.Schema,),
+        {
+            "items": ma.fields.List(ma.fields.Nested(item_schema), required=True),
+            "next": ma.fields.String(
+                allow_none=True, required=True, metadata={"description": "URL of the next page, null on the last."}
+            ),
+            "__doc__": f"One page of {item_schema.__name__.removesuffix('Schema')} items.",
+        },
+    )
+
+
+def page_of(query, order, args, to_views):
+    """Paginate query by the request's limit and cursor; return the list envelope."""
+    page = paginate(query, order, args["limit"], args.get("cursor"))
+    next_url = None
+    if page.next_cursor:
+        params = [(key, value) for key, value in request.args.items(multi=True) if key != "cursor"]
+        next_url = f"{request.base_url}?{urlencode(params + [('cursor', page.next_cursor)])}"
+    return {"items": to_views(page.rows), "next": next_url}
+
+
+def etag(version, *context):
+    """A strong ETag: the resource's version first, then what else its representation depends on."""
+    return '"' + ".".join(str(part) for part in (version, *context)) + '"'
+
+
+def expected_versions():
+    """The versions If-Match names (None without the header or with *); other tags match none."""
+    if not request.if_match or request.if_match.star_tag:
+        return None
+    versions = set()
+    for tag in request.if_match.as_set():
+        head = tag.split(".", 1)[0]
+        if head.isdigit():
+            versions.add(int(head))
+    return versions
+
+
+IF_MATCH_PARAMETER = {
+    "in": "header",
+    "name": "If-Match",
+    "required": False,
+    "schema": {"type": "string"},
+    "description": "The ETag the change is based on; 412 and no change when the resource has moved on.",
+}

@@ -1,0 +1,154 @@
+"""/v1/studies/{id}/modes and /v1/modes/{id}: failure modes, their ratings and retirement."""
+
+import marshmallow as ma
+from flask.views import MethodView
+from flask_smorest import Blueprint
+
+from abate.api.common import (
+    IF_MATCH_PARAMETER,
+    REQUEST_ACTOR,
+    REQUEST_SOURCE,
+    PageArgsSchema,
+    ReasonSchema,
+    UTCDateTime,
+    etag,
+    expected_versions,
+    list_schema,
+    page_of,
+)
+from abate.api.studies import RatingsSchema
+from abate.domain import modes
+from abate.domain.scoring import PRIORITY_BANDS
+from abate.domain.studies import get_study
+
+blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes")
+
+_TEXT = ma.validate.Length(max=10000)
+_RATING = ma.validate.Range(min=1, max=10)
+
+
+class ModeSchema(ma.Schema):
+    """One failure mode (an analysis row) with its scores."""
+
+    id = ma.fields.Integer(dump_only=True)
+    study_id = ma.fields.Integer(dump_only=True)
+    item = ma.fields.String(validate=_TEXT, metadata={"description": "Item, or process step"})
+    function = ma.fields.String(validate=_TEXT, metadata={"description": "Function or requirement"})
+    failure_mode = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=10000))
+    effect = ma.fields.String(validate=_TEXT)
+    cause = ma.fields.String(validate=_TEXT)
+    prevention_controls = ma.fields.String(validate=_TEXT)
+    detection_controls = ma.fields.String(validate=_TEXT)
+    severity = ma.fields.Integer(required=True, validate=_RATING, metadata={"description": "On the study's scale"})
+    occurrence = ma.fields.Integer(required=True, validate=_RATING, metadata={"description": "On the study's scale"})
+    detection = ma.fields.Integer(required=True, validate=_RATING, metadata={"description": "On the study's scale"})
+    rpn = ma.fields.Integer(dump_only=True, metadata={"description": "S x O x D"})
+    criticality = ma.fields.Integer(dump_only=True, metadata={"description": "S x O"})
+    initial = ma.fields.Nested(RatingsSchema, dump_only=True, metadata={"description": "Ratings at creation"})
+    needs_action = ma.fields.Boolean(dump_only=True)
+    needs_action_reasons = ma.fields.List(
+        ma.fields.String(),
+        dump_only=True,
+        metadata={"description": "rpn_at_or_above_threshold and/or severity_at_or_above_threshold"},
+    )
+    priority = ma.fields.String(dump_only=True, metadata={"description": ", ".join(PRIORITY_BANDS)})
+    status = ma.fields.String(dump_only=True, metadata={"description": "active or retired"})
+    version = ma.fields.Integer(dump_only=True)
+    created_at = UTCDateTime(dump_only=True)
+    updated_at = UTCDateTime(dump_only=True)
+    retired_at = UTCDateTime(dump_only=True, allow_none=True)
+
+
+class ModePatchSchema(ModeSchema):
+    """A change to a mode's text or ratings; a rating change needs a reason."""
+
+    reason = ma.fields.String(
+        validate=ma.validate.Length(max=2000), metadata={"description": "Why the ratings change (required then)"}
+    )
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **{"partial": True, **kwargs})
+
+
+class ModeQueryArgsSchema(PageArgsSchema):
+    """Filters and order of a study's mode list."""
+
+    status = ma.fields.String(validate=ma.validate.OneOf(("active", "retired")))
+    needs_action = ma.fields.Boolean()
+    priority = ma.fields.String(validate=ma.validate.OneOf(PRIORITY_BANDS))
+    min_rpn = ma.fields.Integer(validate=ma.validate.Range(min=1))
+    sort = ma.fields.String(
+        load_default="-rpn",
+        validate=ma.validate.OneOf(tuple(modes.MODE_SORTS)),
+        metadata={"description": "-rpn (Pareto order, default), rpn or created_at"},
+    )
+
+
+def _respond(mode, status=200):
+    view = modes.mode_view(mode)
+    study = get_study(mode.study_id)
+    # Scores depend on the study's policy, so its version is part of the mode's ETag.
+    headers = {"ETag": etag(mode.version, study.version)}
+    if status == 201:
+        headers["Location"] = f"/v1/modes/{mode.id}"
+    return view, status, headers
+
+
+@blp.route("/studies/<int:study_id>/modes")
+class StudyModes(MethodView):
+    """A study's failure modes."""
+
+    @blp.arguments(ModeQueryArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(200, list_schema(ModeSchema))
+    def get(self, args, study_id):
+        """List a study's modes, highest RPN first unless sort says otherwise."""
+        query = modes.modes_query(
+            study_id, args.get("status"), args.get("needs_action"), args.get("priority"), args.get("min_rpn")
+        )
+        study = get_study(study_id)
+        return page_of(query, modes.MODE_SORTS[args["sort"]], args, lambda rows: modes.mode_views(rows, study))
+
+    @blp.arguments(ModeSchema)
+    @blp.response(201, ModeSchema)
+    @blp.alt_response(409, description="The study is archived")
+    def post(self, data, study_id):
+        """Add a failure mode; its ratings must lie on the study's scale."""
+        return _respond(modes.create_mode(study_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE), 201)
+
+
+@blp.route("/modes/<int:mode_id>")
+class ModeById(MethodView):
+    """One failure mode."""
+
+    @blp.response(200, ModeSchema)
+    def get(self, mode_id):
+        """Read a mode."""
+        return _respond(modes.get_mode(mode_id))
+
+    @blp.arguments(ModePatchSchema)
+    @blp.response(200, ModeSchema)
+    @blp.alt_response(409, description="The mode is retired or its study archived")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def patch(self, changes, mode_id):
+        """Change a mode's text, or re-rate it with a reason (appends a risk event)."""
+        mode = modes.update_mode(
+            mode_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(mode)
+
+
+@blp.route("/modes/<int:mode_id>/retire")
+class ModeRetirement(MethodView):
+    """Retiring a mode: it leaves the study's risk but stays on record."""
+
+    @blp.arguments(ReasonSchema)
+    @blp.response(200, ModeSchema)
+    @blp.alt_response(409, description="Already retired, or the study is archived")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def post(self, data, mode_id):
+        """Retire a mode (a retirement event, not a risk reduction)."""
+        mode = modes.retire_mode(
+            mode_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(mode)

@@ -1,0 +1,215 @@
+"""/v1/studies: FMEA studies with their risk summary, and their risk events."""
+
+import marshmallow as ma
+from flask.views import MethodView
+from flask_smorest import Blueprint
+
+from abate.api.common import (
+    IF_MATCH_PARAMETER,
+    REQUEST_ACTOR,
+    REQUEST_SOURCE,
+    PageArgsSchema,
+    UTCDateTime,
+    etag,
+    expected_versions,
+    list_schema,
+    page_of,
+)
+from abate.domain import events as risk_events
+from abate.domain import studies
+from abate.domain.events import EVENT_KINDS
+from abate.models import RiskEvent, Study
+
+blp = Blueprint("studies", __name__, url_prefix="/v1/studies", description="FMEA studies")
+
+
+class OwnerSchema(ma.Schema):
+    """The person answerable for a study."""
+
+    name = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
+    email = ma.fields.Email(required=True, validate=ma.validate.Length(max=320))
+
+
+class PriorityCountsSchema(ma.Schema):
+    """Active modes per priority band."""
+
+    high = ma.fields.Integer()
+    medium = ma.fields.Integer()
+    low = ma.fields.Integer()
+
+
+class ParetoEntrySchema(ma.Schema):
+    """One mode in the Pareto ranking."""
+
+    rank = ma.fields.Integer()
+    mode_id = ma.fields.Integer()
+    item = ma.fields.String()
+    failure_mode = ma.fields.String()
+    rpn = ma.fields.Integer()
+    cumulative_percent = ma.fields.Float(metadata={"description": "Share of the total RPN down to this rank"})
+
+
+class RiskSummarySchema(ma.Schema):
+    """A study's risk now, over its active modes."""
+
+    total_rpn = ma.fields.Integer(metadata={"description": "Sum of current RPN over active modes"})
+    initial_total_rpn = ma.fields.Integer(metadata={"description": "Sum of the same modes' RPN at creation"})
+    max_rpn = ma.fields.Integer()
+    needs_action_count = ma.fields.Integer()
+    mode_count = ma.fields.Integer(metadata={"description": "Active modes"})
+    retired_count = ma.fields.Integer()
+    by_priority = ma.fields.Nested(PriorityCountsSchema)
+    pareto = ma.fields.List(
+        ma.fields.Nested(ParetoEntrySchema),
+        metadata={"description": "Highest-RPN modes first (single-study reads only)"},
+    )
+    caution = ma.fields.String()
+
+
+_KIND = ma.validate.OneOf(studies.STUDY_KINDS)
+_STATUS = ma.validate.OneOf(studies.STUDY_STATUSES)
+
+
+class StudySchema(ma.Schema):
+    """An FMEA study."""
+
+    id = ma.fields.Integer(dump_only=True)
+    title = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=300))
+    kind = ma.fields.String(required=True, validate=_KIND, metadata={"description": "design, process, system or other"})
+    scope = ma.fields.String(validate=ma.validate.Length(max=10000))
+    tags = ma.fields.List(ma.fields.String(validate=ma.validate.Length(min=1, max=100)), validate=ma.validate.Length(max=50))
+    site = ma.fields.String(validate=ma.validate.Length(max=200))
+    product_line = ma.fields.String(validate=ma.validate.Length(max=200))
+    owner = ma.fields.Nested(OwnerSchema, required=True)
+    scale_id = ma.fields.Integer(required=True)
+    timezone = ma.fields.String(required=True, metadata={"description": "IANA time zone, e.g. Europe/Berlin"})
+    status = ma.fields.String(validate=_STATUS, metadata={"description": "draft (default), active or archived"})
+    action_threshold = ma.fields.Integer(
+        validate=ma.validate.Range(min=1), metadata={"description": "A mode with RPN at or above this needs action"}
+    )
+    severity_threshold = ma.fields.Integer(
+        validate=ma.validate.Range(min=1),
+        metadata={"description": "A mode with severity at or above this needs action whatever its RPN"},
+    )
+    risk = ma.fields.Nested(RiskSummarySchema, dump_only=True)
+    version = ma.fields.Integer(dump_only=True)
+    risk_revision = ma.fields.Integer(dump_only=True, metadata={"description": "Risk events so far"})
+    created_at = UTCDateTime(dump_only=True)
+    updated_at = UTCDateTime(dump_only=True)
+
+
+class StudyPatchSchema(StudySchema):
+    """A partial change to a study; every field, the owner's too, is optional."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **{"partial": True, **kwargs})
+
+
+class StudyQueryArgsSchema(PageArgsSchema):
+    """Filters for the study list."""
+
+    status = ma.fields.String(validate=_STATUS)
+    kind = ma.fields.String(validate=_KIND)
+    tag = ma.fields.String()
+    owner_email = ma.fields.String(metadata={"description": "Owner e-mail, case-insensitive"})
+
+
+class RatingsSchema(ma.Schema):
+    """Ratings and their RPN."""
+
+    severity = ma.fields.Integer()
+    occurrence = ma.fields.Integer()
+    detection = ma.fields.Integer()
+    rpn = ma.fields.Integer()
+
+
+class RiskEventSchema(ma.Schema):
+    """One change to a study's risk, with the study's totals after it."""
+
+    id = ma.fields.Integer()
+    study_id = ma.fields.Integer()
+    mode_id = ma.fields.Integer(allow_none=True)
+    kind = ma.fields.String(metadata={"description": ", ".join(EVENT_KINDS)})
+    occurred_at = UTCDateTime()
+    recorded_at = UTCDateTime()
+    actor = ma.fields.String()
+    source = ma.fields.String()
+    reason = ma.fields.String()
+    before = ma.fields.Nested(RatingsSchema, allow_none=True)
+    after = ma.fields.Nested(RatingsSchema, allow_none=True)
+    study_total_rpn = ma.fields.Integer()
+    study_max_rpn = ma.fields.Integer()
+    study_needs_action_count = ma.fields.Integer()
+    study_revision = ma.fields.Integer()
+
+
+class RiskEventQueryArgsSchema(PageArgsSchema):
+    """Filters for a study's risk events."""
+
+    mode_id = ma.fields.Integer()
+    kind = ma.fields.String(validate=ma.validate.OneOf(EVENT_KINDS))
+
+
+def study_etag(study):
+    """A study's representation changes with its own version and with every risk event."""
+    return etag(study.version, study.risk_revision)
+
+
+def _respond(study, status=200):
+    headers = {"ETag": study_etag(study)}
+    if status == 201:
+        headers["Location"] = f"/v1/studies/{study.id}"
+    return studies.study_view(study), status, headers
+
+
+@blp.route("")
+class Studies(MethodView):
+    """The collection of studies."""
+
+    @blp.arguments(StudyQueryArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(200, list_schema(StudySchema))
+    def get(self, args):
+        """List studies, oldest first."""
+        query = studies.studies_query(args.get("status"), args.get("kind"), args.get("tag"), args.get("owner_email"))
+        return page_of(query, [(Study.id, False)], args, studies.study_views)
+
+    @blp.arguments(StudySchema)
+    @blp.response(201, StudySchema)
+    def post(self, data):
+        """Create a study."""
+        return _respond(studies.create_study(data), 201)
+
+
+@blp.route("/<int:study_id>")
+class StudyById(MethodView):
+    """One study."""
+
+    @blp.response(200, StudySchema)
+    def get(self, study_id):
+        """Read a study with its risk summary and Pareto ranking."""
+        return _respond(studies.get_study(study_id))
+
+    @blp.arguments(StudyPatchSchema)
+    @blp.response(200, StudySchema)
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def patch(self, changes, study_id):
+        """Change a study; If-Match compares the study's own version (the first part of its ETag)."""
+        study = studies.update_study(
+            study_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(study)
+
+
+@blp.route("/<int:study_id>/events")
+class StudyEvents(MethodView):
+    """The study's risk events, oldest first."""
+
+    @blp.arguments(RiskEventQueryArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(200, list_schema(RiskEventSchema))
+    def get(self, args, study_id):
+        """List the study's risk events."""
+        studies.get_study(study_id)
+        query = risk_events.events_query(study_id, args.get("mode_id"), args.get("kind"))
+        order = [(RiskEvent.study_revision, False)]
+        return page_of(query, order, args, lambda rows: [risk_events.event_view(row) for row in rows])

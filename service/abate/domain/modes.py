@@ -1,0 +1,181 @@
+"""Failure modes: creating, describing, re-rating and retiring them, each rating change an event."""
+
+from abate.db import database
+from abate.domain import events as risk_events
+from abate.domain.clock import utcnow
+from abate.domain.scales import check_ratings
+from abate.domain.scoring import Ratings, assess
+from abate.domain.studies import get_study, policy_of, require_open_for_changes
+from abate.domain.versions import check_version
+from abate.errors import Conflict, NotFound, ValidationFailed, field_error
+from abate.models import RATING_DIMENSIONS, FailureMode
+
+TEXT_FIELDS = (
+    "item",
+    "function",
+    "failure_mode",
+    "effect",
+    "cause",
+    "prevention_controls",
+    "detection_controls",
+)
+MODE_SORTS = {
+    "-rpn": [(FailureMode.rpn, True), (FailureMode.id, False)],
+    "rpn": [(FailureMode.rpn, False), (FailureMode.id, False)],
+    "created_at": [(FailureMode.created_at, False), (FailureMode.id, False)],
+}
+
+
+def get_mode(mode_id):
+    """Return the failure mode with this id or raise NotFound."""
+    mode = FailureMode.get_or_none(FailureMode.id == mode_id)
+    if mode is None:
+        raise NotFound(f"failure mode {mode_id} does not exist")
+    return mode
+
+
+def ratings_of(mode):
+    """The mode's current ratings."""
+    return Ratings(mode.severity, mode.occurrence, mode.detection)
+
+
+def initial_ratings_of(mode):
+    """The ratings the mode was created with."""
+    return Ratings(mode.initial_severity, mode.initial_occurrence, mode.initial_detection)
+
+
+def _set_ratings(mode, ratings):
+    mode.severity, mode.occurrence, mode.detection = ratings.severity, ratings.occurrence, ratings.detection
+    mode.rpn = ratings.rpn
+
+
+def create_mode(study_id, data, *, actor, source, reason=""):
+    """Add a failure mode to a study and record its creation event."""
+    with database.atomic():
+        study = risk_events.lock_study(study_id)
+        require_open_for_changes(study)
+        check_ratings(study.scale_set, data)
+        ratings = Ratings(data["severity"], data["occurrence"], data["detection"])
+        mode = FailureMode(study=study, **{name: data[name] for name in TEXT_FIELDS if name in data})
+        _set_ratings(mode, ratings)
+        mode.initial_severity, mode.initial_occurrence, mode.initial_detection = (
+            ratings.severity,
+            ratings.occurrence,
+            ratings.detection,
+        )
+        mode.save()
+        risk_events.record_event(
+            study, "created", mode=mode, after=ratings, actor=actor, source=source, reason=reason
+        )
+    return mode
+
+
+def _locked_active_mode(mode_id):
+    """Lock the mode's study, then return (study, mode); a retired mode or archived study is a Conflict."""
+    study = risk_events.lock_study(get_mode(mode_id).study_id)
+    mode = FailureMode.get_by_id(mode_id)
+    require_open_for_changes(study)
+    if mode.status != "active":
+        raise Conflict(f"failure mode {mode_id} is retired; retired modes keep their last ratings")
+    return study, mode
+
+
+def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
+    """Change a mode's text and/or ratings; a rating change needs a reason and appends an event."""
+    with database.atomic():
+        study, mode = _locked_active_mode(mode_id)
+        check_version(mode.version, expected_versions)
+        before = ratings_of(mode)
+        rating_changes = {name: changes[name] for name in RATING_DIMENSIONS if name in changes}
+        check_ratings(study.scale_set, rating_changes)
+        after = Ratings(**{name: rating_changes.get(name, getattr(before, name)) for name in RATING_DIMENSIONS})
+        if after != before and not changes.get("reason", "").strip():
+            raise ValidationFailed(
+                "a re-rating needs a reason", errors=[field_error("reason", "required when a rating changes")]
+            )
+        for name in TEXT_FIELDS:
+            if name in changes:
+                setattr(mode, name, changes[name])
+        _set_ratings(mode, after)
+        mode.version += 1
+        mode.updated_at = utcnow()
+        mode.save()
+        if after != before:
+            risk_events.record_event(
+                study,
+                "rerated",
+                mode=mode,
+                before=before,
+                after=after,
+                actor=actor,
+                source=source,
+                reason=changes["reason"].strip(),
+            )
+    return mode
+
+
+def retire_mode(mode_id, reason, *, actor, source, expected_versions=None):
+    """Take a mode out of the study's risk (never deleted); its event is a retirement, not a reduction."""
+    with database.atomic():
+        study, mode = _locked_active_mode(mode_id)
+        check_version(mode.version, expected_versions)
+        mode.status = "retired"
+        mode.retired_at = mode.updated_at = utcnow()
+        mode.version += 1
+        mode.save()
+        risk_events.record_event(
+            study, "retired", mode=mode, before=ratings_of(mode), actor=actor, source=source, reason=reason
+        )
+    return mode
+
+
+def modes_query(study_id, status=None, needs_action=None, priority=None, min_rpn=None):
+    """A study's modes matching the filters, for pagination by the caller."""
+    study = get_study(study_id)
+    query = FailureMode.select().where(FailureMode.study == study)
+    if status:
+        query = query.where(FailureMode.status == status)
+    if min_rpn is not None:
+        query = query.where(FailureMode.rpn >= min_rpn)
+    if needs_action is not None:
+        needs = risk_events.needs_action_condition(study)
+        query = query.where(needs if needs_action else ~needs)
+    if priority:
+        query = query.where(FailureMode.priority_expr(priority, study.action_threshold, study.severity_threshold))
+    return query
+
+
+def mode_views(modes, study=None):
+    """The modes as plain data for the API, scored by their study's policy."""
+    studies = {}
+    views = []
+    for mode in modes:
+        if study is None or study.id != mode.study_id:
+            study = studies.get(mode.study_id) or get_study(mode.study_id)
+            studies[study.id] = study
+        current = ratings_of(mode)
+        assessment = assess(current, policy_of(study))
+        views.append(
+            {
+                "id": mode.id,
+                "study_id": mode.study_id,
+                **{name: getattr(mode, name) for name in TEXT_FIELDS},
+                **current.as_dict(),
+                "criticality": current.criticality,
+                "initial": initial_ratings_of(mode).as_dict(),
+                "needs_action": assessment.needs_action,
+                "needs_action_reasons": list(assessment.reasons),
+                "priority": assessment.priority,
+                "status": mode.status,
+                "version": mode.version,
+                "created_at": mode.created_at,
+                "updated_at": mode.updated_at,
+                "retired_at": mode.retired_at,
+            }
+        )
+    return views
+
+
+def mode_view(mode):
+    """One mode as plain data."""
+    return mode_views([mode])[0]

@@ -1,0 +1,275 @@
+"""Studies: creating, changing and listing them, their life cycle and risk summary."""
+
+import zoneinfo
+
+import peewee as pw
+
+from abate.db import database
+from abate.domain import events as risk_events
+from abate.domain.clock import utcnow
+from abate.domain.scales import get_scale_set
+from abate.domain.scoring import RiskPolicy
+from abate.domain.versions import check_version
+from abate.errors import Conflict, InvalidTransition, NotFound, ValidationFailed, field_error
+from abate.models import FailureMode, Study, StudyTag
+
+STUDY_KINDS = ("design", "process", "system", "other")
+STUDY_STATUSES = ("draft", "active", "archived")
+# Which status may follow which; an archived study can be taken up again, a started one not reset.
+STUDY_TRANSITIONS = {
+    "draft": {"active", "archived"},
+    "active": {"archived"},
+    "archived": {"active"},
+}
+PARETO_LENGTH = 10
+CAUTION = (
+    "Abate ranks and tracks risk; it does not certify. Severity of safety or regulatory effects "
+    "needs review by qualified people; local codes, the applicable standards and licensed practice govern."
+)
+_PLAIN_FIELDS = ("title", "kind", "scope", "site", "product_line", "timezone")
+
+
+def get_study(study_id):
+    """Return the study with this id or raise NotFound."""
+    study = Study.get_or_none(Study.id == study_id)
+    if study is None:
+        raise NotFound(f"study {study_id} does not exist")
+    return study
+
+
+def policy_of(study):
+    """The study's risk policy."""
+    return RiskPolicy(action_threshold=study.action_threshold, severity_threshold=study.severity_threshold)
+
+
+def _check_timezone(name):
+    try:
+        zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError) as error:
+        raise ValidationFailed(
+            "unknown time zone", errors=[field_error("timezone", f"{name!r} is not an IANA time zone name")]
+        ) from error
+
+
+def _check_policy(study, scale_set):
+    errors = []
+    if not 1 <= study.action_threshold <= scale_set.max_rpn:
+        errors.append(field_error("action_threshold", f"must be between 1 and {scale_set.max_rpn} on this scale set"))
+    if not 1 <= study.severity_threshold <= scale_set.severity_max:
+        errors.append(
+            field_error("severity_threshold", f"must be between 1 and {scale_set.severity_max} on this scale set")
+        )
+    if errors:
+        raise ValidationFailed("the risk policy lies outside the study's scales", errors=errors)
+
+
+def _set_tags(study, tags):
+    StudyTag.delete().where(StudyTag.study == study).execute()
+    if tags:
+        StudyTag.insert_many([{"study": study.id, "tag": tag} for tag in sorted(set(tags))]).execute()
+
+
+def create_study(data):
+    """Create a study; thresholds default to the scale set's defaults."""
+    scale_set = _scale_set_for(data["scale_id"])
+    _check_timezone(data["timezone"])
+    study = Study(
+        **{name: data[name] for name in _PLAIN_FIELDS if name in data},
+        owner_name=data["owner"]["name"],
+        owner_email=data["owner"]["email"],
+        scale_set=scale_set,
+        status=data.get("status", "draft"),
+        action_threshold=data.get("action_threshold") or scale_set.default_action_threshold,
+        severity_threshold=data.get("severity_threshold") or scale_set.default_severity_threshold,
+    )
+    _check_policy(study, scale_set)
+    with database.atomic():
+        study.save()
+        _set_tags(study, data.get("tags", []))
+    return study
+
+
+def _scale_set_for(scale_id):
+    try:
+        return get_scale_set(scale_id)
+    except NotFound as error:
+        raise ValidationFailed(error.detail, errors=[field_error("scale_id", error.detail)]) from error
+
+
+def update_study(study_id, changes, *, actor, source, expected_versions=None):
+    """Apply a partial change; a new risk policy is recorded as a risk event of its own."""
+    with database.atomic():
+        study = risk_events.lock_study(study_id)
+        check_version(study.version, expected_versions)
+        old_policy = policy_of(study)
+        if "status" in changes and changes["status"] != study.status:
+            if changes["status"] not in STUDY_TRANSITIONS[study.status]:
+                raise InvalidTransition(f"a study cannot go from {study.status} to {changes['status']}")
+            study.status = changes["status"]
+        if "scale_id" in changes and changes["scale_id"] != study.scale_set_id:
+            if FailureMode.select().where(FailureMode.study == study).exists():
+                raise Conflict("the study has failure modes rated on its scale set; it cannot change scales")
+            study.scale_set = _scale_set_for(changes["scale_id"])
+        if "timezone" in changes:
+            _check_timezone(changes["timezone"])
+        for name in _PLAIN_FIELDS:
+            if name in changes:
+                setattr(study, name, changes[name])
+        if "owner" in changes:
+            study.owner_name = changes["owner"].get("name", study.owner_name)
+            study.owner_email = changes["owner"].get("email", study.owner_email)
+        for name in ("action_threshold", "severity_threshold"):
+            if name in changes:
+                setattr(study, name, changes[name])
+        _check_policy(study, study.scale_set)
+        if "tags" in changes:
+            _set_tags(study, changes["tags"])
+        study.version += 1
+        study.updated_at = utcnow()
+        study.save()
+        if policy_of(study) != old_policy:
+            reason = (
+                f"risk policy changed from RPN >= {old_policy.action_threshold} or S >= "
+                f"{old_policy.severity_threshold} to RPN >= {study.action_threshold} or S >= {study.severity_threshold}"
+            )
+            risk_events.record_event(study, "policy_changed", actor=actor, source=source, reason=reason)
+    return study
+
+
+def require_open_for_changes(study):
+    """An archived study is a closed record; raise Conflict on any change to its modes."""
+    if study.status == "archived":
+        raise Conflict(f"study {study.id} is archived; make it active again before changing its modes")
+
+
+def studies_query(status=None, kind=None, tag=None, owner_email=None):
+    """Studies matching the filters, for pagination by the caller."""
+    query = Study.select()
+    if status:
+        query = query.where(Study.status == status)
+    if kind:
+        query = query.where(Study.kind == kind)
+    if owner_email:
+        query = query.where(pw.fn.LOWER(Study.owner_email) == owner_email.lower())
+    if tag:
+        query = query.where(Study.id.in_(StudyTag.select(StudyTag.study).where(StudyTag.tag == tag)))
+    return query
+
+
+def _tags_by_study(study_ids):
+    tags = {study_id: [] for study_id in study_ids}
+    for row in StudyTag.select().where(StudyTag.study.in_(study_ids)).order_by(StudyTag.tag):
+        tags[row.study_id].append(row.tag)
+    return tags
+
+
+def risk_summaries(studies):
+    """Return {study_id: summary} for the given studies in one grouped query (plus Pareto rows)."""
+    ids = [study.id for study in studies]
+    summaries = {study.id: _empty_summary() for study in studies}
+    if not ids:
+        return summaries
+    thresholds = (Study.action_threshold, Study.severity_threshold)
+    initial_rpn = FailureMode.initial_severity * FailureMode.initial_occurrence * FailureMode.initial_detection
+    rows = (
+        FailureMode.select(
+            FailureMode.study,
+            FailureMode.status,
+            pw.fn.COUNT(FailureMode.id).alias("modes"),
+            pw.fn.SUM(FailureMode.rpn).alias("total"),
+            pw.fn.SUM(initial_rpn).alias("initial_total"),
+            pw.fn.MAX(FailureMode.rpn).alias("max_rpn"),
+            pw.fn.SUM(pw.Case(None, [(FailureMode.priority_expr("high", *thresholds), 1)], 0)).alias("high"),
+            pw.fn.SUM(pw.Case(None, [(FailureMode.priority_expr("medium", *thresholds), 1)], 0)).alias("medium"),
+        )
+        .join(Study, on=(FailureMode.study == Study.id))
+        .where(FailureMode.study.in_(ids))
+        .group_by(FailureMode.study, FailureMode.status)
+        .dicts()
+    )
+    for row in rows:
+        summary = summaries[row["study"]]
+        if row["status"] != "active":
+            summary["retired_count"] = int(row["modes"])
+            continue
+        high, medium_count = int(row["high"] or 0), int(row["medium"] or 0)
+        summary.update(
+            mode_count=int(row["modes"]),
+            total_rpn=int(row["total"] or 0),
+            initial_total_rpn=int(row["initial_total"] or 0),
+            max_rpn=int(row["max_rpn"] or 0),
+            needs_action_count=high,
+            by_priority={"high": high, "medium": medium_count, "low": int(row["modes"]) - high - medium_count},
+        )
+    return summaries
+
+
+def _empty_summary():
+    return {
+        "total_rpn": 0,
+        "initial_total_rpn": 0,
+        "max_rpn": 0,
+        "needs_action_count": 0,
+        "mode_count": 0,
+        "retired_count": 0,
+        "by_priority": {"high": 0, "medium": 0, "low": 0},
+        "caution": CAUTION,
+    }
+
+
+def pareto(study, length=PARETO_LENGTH):
+    """The highest-RPN active modes with their cumulative share of the study's total RPN."""
+    modes = (
+        FailureMode.select()
+        .where((FailureMode.study == study) & (FailureMode.status == "active"))
+        .order_by(FailureMode.rpn.desc(), FailureMode.id)
+        .limit(length)
+    )
+    ranking, running = [], 0
+    for rank, mode in enumerate(modes, start=1):
+        running += mode.rpn
+        ranking.append(
+            {
+                "rank": rank,
+                "mode_id": mode.id,
+                "item": mode.item,
+                "failure_mode": mode.failure_mode,
+                "rpn": mode.rpn,
+                "cumulative_percent": round(100 * running / study.total_rpn, 1) if study.total_rpn else 0.0,
+            }
+        )
+    return ranking
+
+
+def study_views(studies, with_pareto=False):
+    """The studies as plain data for the API, their risk summaries included."""
+    summaries = risk_summaries(studies)
+    tags = _tags_by_study([study.id for study in studies])
+    views = []
+    for study in studies:
+        risk = summaries[study.id]
+        if with_pareto:
+            risk["pareto"] = pareto(study)
+        views.append(
+            {
+                "id": study.id,
+                **{name: getattr(study, name) for name in _PLAIN_FIELDS},
+                "tags": tags[study.id],
+                "owner": {"name": study.owner_name, "email": study.owner_email},
+                "scale_id": study.scale_set_id,
+                "status": study.status,
+                "action_threshold": study.action_threshold,
+                "severity_threshold": study.severity_threshold,
+                "risk": risk,
+                "version": study.version,
+                "risk_revision": study.risk_revision,
+                "created_at": study.created_at,
+                "updated_at": study.updated_at,
+            }
+        )
+    return views
+
+
+def study_view(study):
+    """One study as plain data, with its Pareto ranking."""
+    return study_views([study], with_pareto=True)[0]

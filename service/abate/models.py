@@ -1,0 +1,182 @@
+"""Peewee models: scale sets, API tokens, studies, failure modes and their risk events."""
+
+import peewee as pw
+
+from abate.db import database
+from abate.domain.clock import utcnow
+
+RATING_DIMENSIONS = ("severity", "occurrence", "detection")
+
+
+class BaseModel(pw.Model):
+    """Base of every Abate table: bound to the database proxy."""
+
+    class Meta:
+        database = database
+        legacy_table_names = False
+
+
+class ScaleSet(BaseModel):
+    """A company's rating scales for severity, occurrence and detection."""
+
+    name = pw.CharField(max_length=200, unique=True)
+    description = pw.TextField(default="")
+    builtin = pw.BooleanField(default=False)
+    severity_max = pw.SmallIntegerField()
+    occurrence_max = pw.SmallIntegerField()
+    detection_max = pw.SmallIntegerField()
+    default_action_threshold = pw.IntegerField()
+    default_severity_threshold = pw.SmallIntegerField()
+    version = pw.IntegerField(default=1)
+    created_at = pw.DateTimeField(default=utcnow)
+    updated_at = pw.DateTimeField(default=utcnow)
+
+    def maximum(self, dimension):
+        """Return the top value of the named dimension's scale."""
+        return getattr(self, f"{dimension}_max")
+
+    @property
+    def max_rpn(self):
+        """The largest RPN this scale set allows."""
+        return self.severity_max * self.occurrence_max * self.detection_max
+
+    @classmethod
+    def in_use_ids(cls, ids):
+        """Return the subset of scale set ids that at least one study uses."""
+        query = Study.select(Study.scale_set).where(Study.scale_set.in_(list(ids))).distinct()
+        return {row.scale_set_id for row in query}
+
+
+class ScaleLevel(BaseModel):
+    """One level of one dimension of a scale set, with its label and criteria."""
+
+    scale_set = pw.ForeignKeyField(ScaleSet, backref="levels", on_delete="CASCADE")
+    dimension = pw.CharField(max_length=16)
+    value = pw.SmallIntegerField()
+    label = pw.CharField(max_length=200)
+    criteria = pw.TextField(default="")
+
+    class Meta:
+        indexes = ((("scale_set", "dimension", "value"), True),)
+
+
+class ApiToken(BaseModel):
+    """An API token; only the SHA-256 of its secret is kept."""
+
+    name = pw.CharField(max_length=200)
+    role = pw.CharField(max_length=16)
+    secret_hash = pw.CharField(max_length=64, unique=True)
+    created_at = pw.DateTimeField(default=utcnow)
+    last_used_at = pw.DateTimeField(null=True)
+    revoked_at = pw.DateTimeField(null=True)
+
+
+class Study(BaseModel):
+    """One FMEA: its scope, owner, scale set, time zone and risk policy."""
+
+    title = pw.CharField(max_length=300)
+    kind = pw.CharField(max_length=16)
+    scope = pw.TextField(default="")
+    site = pw.CharField(max_length=200, default="")
+    product_line = pw.CharField(max_length=200, default="")
+    owner_name = pw.CharField(max_length=200)
+    owner_email = pw.CharField(max_length=320, index=True)
+    scale_set = pw.ForeignKeyField(ScaleSet, backref="studies", on_delete="RESTRICT")
+    timezone = pw.CharField(max_length=64)
+    status = pw.CharField(max_length=16, index=True)
+    action_threshold = pw.IntegerField()
+    severity_threshold = pw.SmallIntegerField()
+    # Running total of current RPN over active modes, moved by every risk event.
+    total_rpn = pw.IntegerField(default=0)
+    # Count of risk events so far; a study's ETag changes with it.
+    risk_revision = pw.IntegerField(default=0)
+    version = pw.IntegerField(default=1)
+    created_at = pw.DateTimeField(default=utcnow)
+    updated_at = pw.DateTimeField(default=utcnow)
+
+
+class StudyTag(BaseModel):
+    """A free-form tag on a study (product family, customer programme, audit...)."""
+
+    study = pw.ForeignKeyField(Study, backref="tag_rows", on_delete="CASCADE")
+    tag = pw.CharField(max_length=100, index=True)
+
+    class Meta:
+        indexes = ((("study", "tag"), True),)
+
+
+class FailureMode(BaseModel):
+    """One analysis row: item, function, failure mode, effect, cause, controls and ratings."""
+
+    study = pw.ForeignKeyField(Study, backref="modes", on_delete="RESTRICT")
+    item = pw.TextField(default="")
+    function = pw.TextField(default="")
+    failure_mode = pw.TextField()
+    effect = pw.TextField(default="")
+    cause = pw.TextField(default="")
+    prevention_controls = pw.TextField(default="")
+    detection_controls = pw.TextField(default="")
+    severity = pw.SmallIntegerField()
+    occurrence = pw.SmallIntegerField()
+    detection = pw.SmallIntegerField()
+    # Stored so that ranking, totals and the maximum are index work; always S x O x D.
+    rpn = pw.IntegerField()
+    initial_severity = pw.SmallIntegerField()
+    initial_occurrence = pw.SmallIntegerField()
+    initial_detection = pw.SmallIntegerField()
+    status = pw.CharField(max_length=16, default="active")
+    version = pw.IntegerField(default=1)
+    created_at = pw.DateTimeField(default=utcnow)
+    updated_at = pw.DateTimeField(default=utcnow)
+    retired_at = pw.DateTimeField(null=True)
+
+    class Meta:
+        indexes = ((("study", "status", "rpn"), False),)
+
+    @classmethod
+    def needs_action_expr(cls, action_threshold, severity_threshold):
+        """SQL test of domain.scoring.needs_action_reasons; thresholds are numbers or Study columns."""
+        return (cls.rpn >= action_threshold) | (cls.severity >= severity_threshold)
+
+    @classmethod
+    def priority_expr(cls, band, action_threshold, severity_threshold):
+        """SQL test of domain.scoring.priority_band for one band."""
+        needs = cls.needs_action_expr(action_threshold, severity_threshold)
+        if band == "high":
+            return needs
+        half_or_more = 2 * cls.rpn >= action_threshold
+        return ~needs & (half_or_more if band == "medium" else ~half_or_more)
+
+
+class RiskEvent(BaseModel):
+    """An appended record of a change to a study's risk, with the study's totals after it."""
+
+    study = pw.ForeignKeyField(Study, backref="events", on_delete="RESTRICT")
+    mode = pw.ForeignKeyField(FailureMode, backref="events", null=True, on_delete="RESTRICT")
+    kind = pw.CharField(max_length=32)
+    occurred_at = pw.DateTimeField()
+    recorded_at = pw.DateTimeField(default=utcnow)
+    actor = pw.CharField(max_length=200)
+    source = pw.CharField(max_length=32)
+    reason = pw.TextField(default="")
+    before_severity = pw.SmallIntegerField(null=True)
+    before_occurrence = pw.SmallIntegerField(null=True)
+    before_detection = pw.SmallIntegerField(null=True)
+    before_rpn = pw.IntegerField(null=True)
+    after_severity = pw.SmallIntegerField(null=True)
+    after_occurrence = pw.SmallIntegerField(null=True)
+    after_detection = pw.SmallIntegerField(null=True)
+    after_rpn = pw.IntegerField(null=True)
+    study_total_rpn = pw.IntegerField()
+    study_max_rpn = pw.IntegerField()
+    study_needs_action_count = pw.IntegerField()
+    study_revision = pw.IntegerField()
+
+    class Meta:
+        indexes = (
+            (("study", "occurred_at"), False),
+            (("study", "study_revision"), True),
+        )
+
+
+ALL_MODELS = [ScaleSet, ScaleLevel, ApiToken, Study, StudyTag, FailureMode, RiskEvent]
