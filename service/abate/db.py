@@ -6,6 +6,7 @@ from pathlib import Path
 from urllib.parse import parse_qsl, unquote, urlsplit
 
 import peewee
+from flask import request
 from playhouse.migrate import SchemaMigrator
 from playhouse.pool import PooledPostgresqlDatabase
 
@@ -76,7 +77,9 @@ def init_app(app):
 
     @app.before_request
     def _connect():
-        database.connect(reuse_if_open=True)
+        # Liveness must not depend on the database; readiness is the probe that checks it.
+        if request.endpoint != "health.livez":
+            database.connect(reuse_if_open=True)
 
     @app.teardown_request
     def _close(exc):
