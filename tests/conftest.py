@@ -80,10 +80,11 @@ def app(database_url, tmp_path):
     """The application on the parametrised database."""
     application = build_app(database_url, tmp_path)
     yield application
-    _close_pool()
+    close_pool()
 
 
-def _close_pool():
+def close_pool():
+    """Close the pooled PostgreSQL connections (or the SQLite connection) of the bound database."""
     if hasattr(db.database.obj, "close_all"):
         db.database.obj.close_all()
     elif not db.database.is_closed():
@@ -106,16 +107,21 @@ def connection(app):
 @pytest.fixture
 def live_server(app):
     """The app served by waitress on a free loopback port; yields its base URL."""
+    from waitress import wasyncore
     from waitress.server import create_server
 
     server = create_server(app, host="127.0.0.1", port=0, threads=8, ident="abate-test")
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
     yield f"http://127.0.0.1:{server.effective_port}"
-    server.close()
+    # Let the worker threads finish, then close the sockets from the server's own loop thread,
+    # so that neither a worker nor select() ever touches a closed one.
+    server.task_dispatcher.shutdown()
+    server.trigger.pull_trigger(lambda: wasyncore.close_all(server._map))
     thread.join(timeout=5)
 
 
+HEAD_SCHEMA_VERSION = max(version for version, _, _ in db.available_migrations())
 BUILTIN_1_10 = "General 1-10"
 BUILTIN_1_5 = "Compact 1-5"
 

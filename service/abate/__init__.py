@@ -3,6 +3,7 @@
 from flask import Flask, request
 
 from abate import api, db
+from abate.api.common import BoundedIntegerConverter
 from abate.config import load_config
 
 
@@ -12,6 +13,7 @@ def create_app(test_config=None):
     app.config.from_mapping(load_config(test_config))
     app.config["MAX_CONTENT_LENGTH"] = int(app.config["MAX_BODY_BYTES"])
     app.json.sort_keys = False
+    app.url_map.converters["int"] = BoundedIntegerConverter
     db.init_app(app)
     api.init_app(app)
 

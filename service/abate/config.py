@@ -5,8 +5,11 @@ from pathlib import Path
 
 #: Every setting the service reads, with its default and what it means (the README's table).
 SETTINGS = {
-    "DATABASE_URL": (None, "Database URL: sqlite:///path/to/file.sqlite3 or postgresql://user@host:port/db. "
-                     "Default: a SQLite file under ./instance/."),
+    "DATABASE_URL": (
+        None,
+        "Database URL: sqlite:///path/to/file.sqlite3 or postgresql://user@host:port/db. "
+        "Default: a SQLite file under ./instance/.",
+    ),
     "BASE_URL": ("http://127.0.0.1:8000", "Public base URL of the service, used in links."),
     "INSTANCE_PATH": ("instance", "Folder for the default SQLite file and local mail."),
     "MAX_BODY_BYTES": (1_048_576, "Largest accepted request body in bytes (413 above it)."),

@@ -131,8 +131,6 @@ def upgrade(target=None):
             if version <= current or (target is not None and version > target):
                 continue
             module.upgrade(database.obj, migrator)
-            SchemaMigration.create(
-                version=version, name=name, applied_at=utcnow()
-            )
+            SchemaMigration.create(version=version, name=name, applied_at=utcnow())
             applied.append((version, name))
     return applied

@@ -82,9 +82,13 @@ def field_error(field, message, location="json"):
     return {"location": location, "field": field, "message": message}
 
 
+# RFC 9110 renamed these; Python's HTTPStatus still carries the older phrases on 3.11.
+_RFC_9110_PHRASES = {413: "Content Too Large", 422: "Unprocessable Content"}
+
+
 def problem_document(status, detail=None, instance=None, slug=None, title=None):
     """Build an RFC 9457 body; plain HTTP statuses use type about:blank and their phrase as title."""
-    phrase = HTTPStatus(status).phrase
+    phrase = _RFC_9110_PHRASES.get(status) or HTTPStatus(status).phrase
     body = {
         "type": f"urn:abate:problem:{slug}" if slug else "about:blank",
         "title": title if slug else phrase,

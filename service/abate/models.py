@@ -148,11 +148,56 @@ class FailureMode(BaseModel):
         return ~needs & (half_or_more if band == "medium" else ~half_or_more)
 
 
+class CorrectiveAction(BaseModel):
+    """What the team decided to do about a failure mode: owner, due date, target and outcome."""
+
+    mode = pw.ForeignKeyField(FailureMode, backref="actions", on_delete="RESTRICT")
+    study = pw.ForeignKeyField(Study, backref="actions", on_delete="RESTRICT")
+    title = pw.CharField(max_length=300)
+    description = pw.TextField(default="")
+    kind = pw.CharField(max_length=16)
+    owner_name = pw.CharField(max_length=200)
+    owner_email = pw.CharField(max_length=320, index=True)
+    due_date = pw.DateField()
+    original_due_date = pw.DateField()
+    due_date_changes = pw.IntegerField(default=0)
+    status = pw.CharField(max_length=16, default="open")
+    target_severity = pw.SmallIntegerField(null=True)
+    target_occurrence = pw.SmallIntegerField(null=True)
+    target_detection = pw.SmallIntegerField(null=True)
+    external_system = pw.CharField(max_length=100, null=True)
+    external_key = pw.CharField(max_length=200, null=True)
+    result_severity = pw.SmallIntegerField(null=True)
+    result_occurrence = pw.SmallIntegerField(null=True)
+    result_detection = pw.SmallIntegerField(null=True)
+    evidence = pw.TextField(default="")
+    verified_by = pw.CharField(max_length=200, default="")
+    closed_at = pw.DateTimeField(null=True)
+    cancelled_at = pw.DateTimeField(null=True)
+    version = pw.IntegerField(default=1)
+    created_at = pw.DateTimeField(default=utcnow)
+    updated_at = pw.DateTimeField(default=utcnow)
+
+    class Meta:
+        table_name = "corrective_action"
+        indexes = (
+            (("study", "status", "due_date"), False),
+            (("mode", "status"), False),
+            (("external_system", "external_key"), True),
+        )
+
+    @classmethod
+    def unfinished(cls):
+        """Actions still to be done: open or in progress."""
+        return cls.status.in_(("open", "in_progress"))
+
+
 class RiskEvent(BaseModel):
     """An appended record of a change to a study's risk, with the study's totals after it."""
 
     study = pw.ForeignKeyField(Study, backref="events", on_delete="RESTRICT")
     mode = pw.ForeignKeyField(FailureMode, backref="events", null=True, on_delete="RESTRICT")
+    action = pw.ForeignKeyField(CorrectiveAction, backref="events", null=True, on_delete="RESTRICT")
     kind = pw.CharField(max_length=32)
     occurred_at = pw.DateTimeField()
     recorded_at = pw.DateTimeField(default=utcnow)
@@ -171,6 +216,16 @@ class RiskEvent(BaseModel):
     study_max_rpn = pw.IntegerField()
     study_needs_action_count = pw.IntegerField()
     study_revision = pw.IntegerField()
+    study_open_actions = pw.IntegerField(default=0)
+    # The action's due date after the event (action events only), for overdue counts in history.
+    action_due_date = pw.DateField(null=True)
+    # True when a closure's verified ratings are worse than before (the fix revealed more).
+    rating_raised = pw.BooleanField(default=False)
+    # Running sums of RPN change by cause since the study began; their sum is study_total_rpn.
+    change_new_modes = pw.IntegerField(default=0)
+    change_rerating = pw.IntegerField(default=0)
+    change_actions = pw.IntegerField(default=0)
+    change_retirements = pw.IntegerField(default=0)
 
     class Meta:
         indexes = (
@@ -179,4 +234,4 @@ class RiskEvent(BaseModel):
         )
 
 
-ALL_MODELS = [ScaleSet, ScaleLevel, ApiToken, Study, StudyTag, FailureMode, RiskEvent]
+ALL_MODELS = [ScaleSet, ScaleLevel, ApiToken, Study, StudyTag, FailureMode, CorrectiveAction, RiskEvent]

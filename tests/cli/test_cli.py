@@ -12,6 +12,8 @@ from pathlib import Path
 
 import requests
 
+from conftest import HEAD_SCHEMA_VERSION
+
 ROOT = Path(__file__).resolve().parents[2]
 ABATE = str(Path(sys.executable).with_name("abate"))
 SCENARIO = ROOT / "demo" / "scenario.json"
@@ -30,9 +32,9 @@ def _rows(tmp_path, sql):
 
 def test_db_upgrade_applies_each_migration_once(tmp_path):
     first = run_abate(tmp_path, "db", "upgrade").stdout
-    assert "applied migration 0001 initial" in first and "schema at version 2" in first
+    assert "applied migration 0001 initial" in first and f"schema at version {HEAD_SCHEMA_VERSION}" in first
     second = run_abate(tmp_path, "db", "upgrade").stdout
-    assert second.strip() == "schema at version 2"
+    assert second.strip() == f"schema at version {HEAD_SCHEMA_VERSION}"
 
 
 def test_token_create_prints_the_secret_last_and_stores_only_its_hash(tmp_path):
@@ -88,7 +90,7 @@ def test_serve_migrates_and_answers_through_waitress(tmp_path):
             except requests.ConnectionError:
                 assert time.monotonic() < deadline, "abate serve did not start"
                 time.sleep(0.2)
-        assert response.json() == {"status": "ok", "schema_version": 2}
+        assert response.json() == {"status": "ok", "schema_version": HEAD_SCHEMA_VERSION}
         assert response.headers["Server"] == "abate"  # waitress's ident, not a development server
     finally:
         server.terminate()

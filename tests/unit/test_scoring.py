@@ -99,6 +99,7 @@ def test_defaults_for_custom_scale_sets():
     # The top fifth of severity and a tenth of the largest RPN (our documented defaults).
     assert default_severity_threshold(10) == 9
     assert default_severity_threshold(5) == 5
+    assert [default_severity_threshold(top) for top in (4, 3, 2)] == [4, 3, 2]  # never above the scale
     assert default_action_threshold(1000) == 100
     assert default_action_threshold(6 * 6 * 6) == 22
     assert default_action_threshold(2 * 2 * 2) == 1

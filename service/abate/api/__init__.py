@@ -7,8 +7,9 @@ import peewee
 from flask import json, request
 from flask_smorest import Api
 from flask_smorest.utils import prepare_response
-from werkzeug.exceptions import HTTPException, InternalServerError, UnsupportedMediaType
+from werkzeug.exceptions import InternalServerError, UnsupportedMediaType
 
+from abate.api.common import MAX_ID, BoundedIntegerConverter
 from abate.errors import PROBLEM_MEDIA_TYPE, AbateError, problem_document
 
 log = logging.getLogger(__name__)
@@ -51,7 +52,7 @@ class AbateApi(Api):
     def _register_responses(self):
         super()._register_responses()
         # Re-register the lazily documented error responses under the problem media type.
-        for name, response in self.spec.components.responses_lazy.items():
+        for response in self.spec.components.responses_lazy.values():
             content = response.pop("content", None)
             if content:
                 response["schema"] = next(iter(content.values()))["schema"]
@@ -118,7 +119,7 @@ def _require_json_body():
 
 def init_app(app):
     """Create the Api for app, register every resource's blueprint and the request checks."""
-    from abate.api import health, modes, scales, studies
+    from abate.api import actions, health, modes, scales, studies
 
     app.config.update(
         API_TITLE=API_TITLE,
@@ -138,7 +139,10 @@ def init_app(app):
         },
     )
     api = AbateApi(app)
-    for module in (health, scales, studies, modes):
+    api.register_converter(
+        BoundedIntegerConverter, lambda converter: {"type": "integer", "minimum": 0, "maximum": MAX_ID}
+    )
+    for module in (health, scales, studies, modes, actions):
         api.register_blueprint(module.blp)
     app.before_request(_require_json_body)
     return api

@@ -5,13 +5,34 @@ from urllib.parse import urlencode
 
 import marshmallow as ma
 from flask import request
+from werkzeug.routing import IntegerConverter
 
 from abate.domain.pagination import paginate
 
+# The largest id a 64-bit database column holds; a larger one names nothing (404 in paths, 422 elsewhere).
+MAX_ID = 2**63 - 1
 DEFAULT_PAGE_SIZE = 50
 MAX_PAGE_SIZE = 500
 REQUEST_ACTOR = "anonymous"
 REQUEST_SOURCE = "api"
+
+
+class BoundedIntegerConverter(IntegerConverter):
+    """The <int:...> path converter, limited to ids a 64-bit column can hold."""
+
+    def __init__(self, url_map, *args, **kwargs):
+        kwargs.setdefault("max", MAX_ID)
+        super().__init__(url_map, *args, **kwargs)
+
+
+def Id(strict=True, **kwargs):  # noqa: N802 - reads like a field class at the point of use
+    """An integer id within 1..MAX_ID; strict (a JSON integer) in bodies, parsed from text in queries."""
+    return ma.fields.Integer(strict=strict, validate=ma.validate.Range(min=1, max=MAX_ID), **kwargs)
+
+
+def Rating(**kwargs):  # noqa: N802
+    """A rating: a JSON integer 1..10 (the study's scale narrows it further)."""
+    return ma.fields.Integer(strict=True, validate=ma.validate.Range(min=1, max=10), **kwargs)
 
 
 class UTCDateTime(ma.fields.DateTime):

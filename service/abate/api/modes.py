@@ -9,6 +9,7 @@ from abate.api.common import (
     REQUEST_ACTOR,
     REQUEST_SOURCE,
     PageArgsSchema,
+    Rating,
     ReasonSchema,
     UTCDateTime,
     etag,
@@ -24,7 +25,6 @@ from abate.domain.studies import get_study
 blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes")
 
 _TEXT = ma.validate.Length(max=10000)
-_RATING = ma.validate.Range(min=1, max=10)
 
 
 class ModeSchema(ma.Schema):
@@ -39,12 +39,18 @@ class ModeSchema(ma.Schema):
     cause = ma.fields.String(validate=_TEXT)
     prevention_controls = ma.fields.String(validate=_TEXT)
     detection_controls = ma.fields.String(validate=_TEXT)
-    severity = ma.fields.Integer(required=True, validate=_RATING, metadata={"description": "On the study's scale"})
-    occurrence = ma.fields.Integer(required=True, validate=_RATING, metadata={"description": "On the study's scale"})
-    detection = ma.fields.Integer(required=True, validate=_RATING, metadata={"description": "On the study's scale"})
+    severity = Rating(required=True, metadata={"description": "On the study's scale"})
+    occurrence = Rating(required=True, metadata={"description": "On the study's scale"})
+    detection = Rating(required=True, metadata={"description": "On the study's scale"})
     rpn = ma.fields.Integer(dump_only=True, metadata={"description": "S x O x D"})
     criticality = ma.fields.Integer(dump_only=True, metadata={"description": "S x O"})
     initial = ma.fields.Nested(RatingsSchema, dump_only=True, metadata={"description": "Ratings at creation"})
+    projected = ma.fields.Nested(
+        RatingsSchema,
+        dump_only=True,
+        metadata={"description": "Per rating, the lowest of current and the open actions' targets"},
+    )
+    open_actions = ma.fields.Integer(dump_only=True, metadata={"description": "Open or in-progress actions"})
     needs_action = ma.fields.Boolean(dump_only=True)
     needs_action_reasons = ma.fields.List(
         ma.fields.String(),
@@ -57,6 +63,12 @@ class ModeSchema(ma.Schema):
     created_at = UTCDateTime(dump_only=True)
     updated_at = UTCDateTime(dump_only=True)
     retired_at = UTCDateTime(dump_only=True, allow_none=True)
+    effective_at = UTCDateTime(
+        load_only=True,
+        metadata={
+            "description": "When the change took effect, for recording past work; not before the study's latest event"
+        },
+    )
 
 
 class ModePatchSchema(ModeSchema):
@@ -76,7 +88,7 @@ class ModeQueryArgsSchema(PageArgsSchema):
     status = ma.fields.String(validate=ma.validate.OneOf(("active", "retired")))
     needs_action = ma.fields.Boolean()
     priority = ma.fields.String(validate=ma.validate.OneOf(PRIORITY_BANDS))
-    min_rpn = ma.fields.Integer(validate=ma.validate.Range(min=1))
+    min_rpn = ma.fields.Integer(validate=ma.validate.Range(min=1, max=1000))
     sort = ma.fields.String(
         load_default="-rpn",
         validate=ma.validate.OneOf(tuple(modes.MODE_SORTS)),

@@ -13,7 +13,7 @@ blp = Blueprint("scales", __name__, url_prefix="/v1/scales", description="Rating
 class LevelSchema(ma.Schema):
     """One level of a rating scale."""
 
-    value = ma.fields.Integer(required=True, validate=ma.validate.Range(min=1, max=10))
+    value = ma.fields.Integer(required=True, strict=True, validate=ma.validate.Range(min=1, max=10))
     label = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
     criteria = ma.fields.String(load_default="", validate=ma.validate.Length(max=4000))
 
@@ -22,12 +22,11 @@ class DimensionSchema(ma.Schema):
     """The levels of one rating (severity, occurrence or detection)."""
 
     max = ma.fields.Integer(
+        strict=True,
         validate=ma.validate.Range(min=2, max=10),
         metadata={"description": "Top value; the levels must cover 1..max. Derived from the levels if omitted."},
     )
-    levels = ma.fields.List(
-        ma.fields.Nested(LevelSchema), required=True, validate=ma.validate.Length(min=2, max=10)
-    )
+    levels = ma.fields.List(ma.fields.Nested(LevelSchema), required=True, validate=ma.validate.Length(min=2, max=10))
 
 
 class ScaleSetSchema(ma.Schema):
@@ -40,12 +39,18 @@ class ScaleSetSchema(ma.Schema):
     occurrence = ma.fields.Nested(DimensionSchema, required=True)
     detection = ma.fields.Nested(DimensionSchema, required=True)
     default_action_threshold = ma.fields.Integer(
-        validate=ma.validate.Range(min=1),
-        metadata={"description": "RPN at or above which a mode needs action, for new studies (default: a tenth of the largest RPN)"},
+        strict=True,
+        validate=ma.validate.Range(min=1, max=1000),
+        metadata={
+            "description": "RPN at or above which a mode needs action, for new studies (default: a tenth of the largest RPN)"
+        },
     )
     default_severity_threshold = ma.fields.Integer(
-        validate=ma.validate.Range(min=1),
-        metadata={"description": "Severity at or above which a mode needs action, for new studies (default: the top fifth)"},
+        strict=True,
+        validate=ma.validate.Range(min=1, max=10),
+        metadata={
+            "description": "Severity at or above which a mode needs action, for new studies (default: the top fifth)"
+        },
     )
     builtin = ma.fields.Boolean(dump_only=True)
     max_rpn = ma.fields.Integer(dump_only=True)

@@ -8,6 +8,7 @@ from abate.api.common import (
     IF_MATCH_PARAMETER,
     REQUEST_ACTOR,
     REQUEST_SOURCE,
+    Id,
     PageArgsSchema,
     UTCDateTime,
     etag,
@@ -49,13 +50,30 @@ class ParetoEntrySchema(ma.Schema):
     cumulative_percent = ma.fields.Float(metadata={"description": "Share of the total RPN down to this rank"})
 
 
+class ReductionSchema(ma.Schema):
+    """Risk removed so far."""
+
+    points = ma.fields.Integer(metadata={"description": "initial_total_rpn - total_rpn"})
+    percent = ma.fields.Float(metadata={"description": "(initial - current) / initial x 100, one decimal"})
+
+
 class RiskSummarySchema(ma.Schema):
     """A study's risk now, over its active modes."""
 
     total_rpn = ma.fields.Integer(metadata={"description": "Sum of current RPN over active modes"})
     initial_total_rpn = ma.fields.Integer(metadata={"description": "Sum of the same modes' RPN at creation"})
+    projected_total_rpn = ma.fields.Integer(
+        metadata={"description": "Total if every open action meets its target (per rating, the lowest)"}
+    )
+    reduction = ma.fields.Nested(ReductionSchema, metadata={"description": "initial minus current"})
     max_rpn = ma.fields.Integer()
     needs_action_count = ma.fields.Integer()
+    needs_action_with_open_action = ma.fields.Integer()
+    needs_action_covered_percent = ma.fields.Float(
+        metadata={"description": "Share of needs-action modes with an open action (100 when none needs action)"}
+    )
+    open_actions = ma.fields.Integer()
+    overdue_actions = ma.fields.Integer()
     mode_count = ma.fields.Integer(metadata={"description": "Active modes"})
     retired_count = ma.fields.Integer()
     by_priority = ma.fields.Nested(PriorityCountsSchema)
@@ -77,18 +95,23 @@ class StudySchema(ma.Schema):
     title = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=300))
     kind = ma.fields.String(required=True, validate=_KIND, metadata={"description": "design, process, system or other"})
     scope = ma.fields.String(validate=ma.validate.Length(max=10000))
-    tags = ma.fields.List(ma.fields.String(validate=ma.validate.Length(min=1, max=100)), validate=ma.validate.Length(max=50))
+    tags = ma.fields.List(
+        ma.fields.String(validate=ma.validate.Length(min=1, max=100)), validate=ma.validate.Length(max=50)
+    )
     site = ma.fields.String(validate=ma.validate.Length(max=200))
     product_line = ma.fields.String(validate=ma.validate.Length(max=200))
     owner = ma.fields.Nested(OwnerSchema, required=True)
-    scale_id = ma.fields.Integer(required=True)
+    scale_id = Id(required=True)
     timezone = ma.fields.String(required=True, metadata={"description": "IANA time zone, e.g. Europe/Berlin"})
     status = ma.fields.String(validate=_STATUS, metadata={"description": "draft (default), active or archived"})
     action_threshold = ma.fields.Integer(
-        validate=ma.validate.Range(min=1), metadata={"description": "A mode with RPN at or above this needs action"}
+        strict=True,
+        validate=ma.validate.Range(min=1, max=1000),
+        metadata={"description": "A mode with RPN at or above this needs action"},
     )
     severity_threshold = ma.fields.Integer(
-        validate=ma.validate.Range(min=1),
+        strict=True,
+        validate=ma.validate.Range(min=1, max=10),
         metadata={"description": "A mode with severity at or above this needs action whatever its RPN"},
     )
     risk = ma.fields.Nested(RiskSummarySchema, dump_only=True)
@@ -129,6 +152,7 @@ class RiskEventSchema(ma.Schema):
     id = ma.fields.Integer()
     study_id = ma.fields.Integer()
     mode_id = ma.fields.Integer(allow_none=True)
+    action_id = ma.fields.Integer(allow_none=True)
     kind = ma.fields.String(metadata={"description": ", ".join(EVENT_KINDS)})
     occurred_at = UTCDateTime()
     recorded_at = UTCDateTime()
@@ -141,12 +165,20 @@ class RiskEventSchema(ma.Schema):
     study_max_rpn = ma.fields.Integer()
     study_needs_action_count = ma.fields.Integer()
     study_revision = ma.fields.Integer()
+    study_open_actions = ma.fields.Integer()
+    rating_raised = ma.fields.Boolean(metadata={"description": "A closure whose verified result raised a rating"})
+    change_by_cause = ma.fields.Dict(
+        keys=ma.fields.String(),
+        values=ma.fields.Integer(),
+        metadata={"description": "Running RPN change since the study began: new_modes, rerating, actions, retirements"},
+    )
 
 
 class RiskEventQueryArgsSchema(PageArgsSchema):
     """Filters for a study's risk events."""
 
-    mode_id = ma.fields.Integer()
+    mode_id = Id(strict=False)
+    action_id = Id(strict=False)
     kind = ma.fields.String(validate=ma.validate.OneOf(EVENT_KINDS))
 
 
@@ -210,6 +242,6 @@ class StudyEvents(MethodView):
     def get(self, args, study_id):
         """List the study's risk events."""
         studies.get_study(study_id)
-        query = risk_events.events_query(study_id, args.get("mode_id"), args.get("kind"))
+        query = risk_events.events_query(study_id, args.get("mode_id"), args.get("kind"), args.get("action_id"))
         order = [(RiskEvent.study_revision, False)]
         return page_of(query, order, args, lambda rows: [risk_events.event_view(row) for row in rows])

@@ -1,17 +1,34 @@
 """Risk events: the append-only record of every change to a study's risk, with running totals."""
 
+import datetime
+
 import peewee as pw
 
 from abate.db import lock_for_update
 from abate.domain.clock import utcnow
-from abate.models import FailureMode, RiskEvent, Study
+from abate.errors import Conflict, NotFound, ValidationFailed, field_error
+from abate.models import CorrectiveAction, FailureMode, RiskEvent, Study
 
-EVENT_KINDS = ("created", "rerated", "retired", "policy_changed")
+# Which running sum of RPN change each kind moves; the other kinds change no rating.
+CAUSE_OF_KIND = {
+    "created": "change_new_modes",
+    "rerated": "change_rerating",
+    "action_closed": "change_actions",
+    "action_reopened": "change_actions",
+    "retired": "change_retirements",
+}
+CAUSES = ("change_new_modes", "change_rerating", "change_actions", "change_retirements")
+EVENT_KINDS = (*CAUSE_OF_KIND, "policy_changed", "action_created", "action_updated", "action_cancelled")
+# A recorded past time may lag the clock of the machine that sends it by this much.
+CLOCK_SKEW = datetime.timedelta(minutes=5)
 
 
 def lock_study(study_id):
     """Re-read the study holding its row lock, so writers to one study never interleave totals."""
-    return lock_for_update(Study.select().where(Study.id == study_id)).get()
+    study = lock_for_update(Study.select().where(Study.id == study_id)).first()
+    if study is None:
+        raise NotFound(f"study {study_id} does not exist")
+    return study
 
 
 def _active_modes(study):
@@ -23,21 +40,64 @@ def needs_action_condition(study):
     return FailureMode.needs_action_expr(study.action_threshold, study.severity_threshold)
 
 
-def record_event(study, kind, *, mode=None, before=None, after=None, actor, source, reason="", occurred_at=None):
-    """Append an event; study must be locked and the mode already saved in its new state.
+def latest_event(study):
+    """The study's most recent event, or None."""
+    return RiskEvent.select().where(RiskEvent.study == study).order_by(RiskEvent.study_revision.desc()).first()
+
+
+def resolve_effective_at(study, effective_at):
+    """The time a change takes effect: now, or a past time no earlier than the study's latest event.
+
+    Keeping events in time order is what lets a history point be one indexed lookup.
+    """
+    now = utcnow()
+    if effective_at is None:
+        return now
+    if effective_at > now + CLOCK_SKEW:
+        raise ValidationFailed(
+            "effective_at lies in the future", errors=[field_error("effective_at", "must not be later than now")]
+        )
+    previous = latest_event(study)
+    if previous is not None and effective_at < previous.occurred_at:
+        raise Conflict(
+            f"effective_at precedes the study's latest event ({previous.occurred_at.isoformat()}Z); "
+            "record past work in time order"
+        )
+    return effective_at
+
+
+def record_event(
+    study,
+    kind,
+    *,
+    mode=None,
+    action=None,
+    before=None,
+    after=None,
+    actor,
+    source,
+    reason="",
+    occurred_at=None,
+    rating_raised=False,
+):
+    """Append an event; study must be locked and the mode/action already saved in their new state.
 
     before/after are Ratings (or None where the mode enters or leaves the study). The
     study's running total moves by the RPN difference and the event keeps the totals after it.
     """
-    before_rpn = before.rpn if before else 0
-    after_rpn = after.rpn if after else 0
-    study.total_rpn += after_rpn - before_rpn
+    delta = (after.rpn if after else 0) - (before.rpn if before else 0)
+    previous = latest_event(study)
+    sums = {cause: getattr(previous, cause) if previous else 0 for cause in CAUSES}
+    if kind in CAUSE_OF_KIND:
+        sums[CAUSE_OF_KIND[kind]] += delta
+    study.total_rpn += delta
     study.risk_revision += 1
     study.save(only=[Study.total_rpn, Study.risk_revision])
     active = _active_modes(study)
     return RiskEvent.create(
         study=study,
         mode=mode,
+        action=action,
         kind=kind,
         occurred_at=occurred_at or utcnow(),
         actor=actor,
@@ -49,6 +109,12 @@ def record_event(study, kind, *, mode=None, before=None, after=None, actor, sour
         study_max_rpn=active.select(pw.fn.MAX(FailureMode.rpn)).scalar() or 0,
         study_needs_action_count=active.where(needs_action_condition(study)).count(),
         study_revision=study.risk_revision,
+        study_open_actions=CorrectiveAction.select()
+        .where((CorrectiveAction.study == study) & CorrectiveAction.unfinished())
+        .count(),
+        action_due_date=action.due_date if action is not None else None,
+        rating_raised=rating_raised,
+        **sums,
     )
 
 
@@ -69,6 +135,7 @@ def event_view(event):
         "id": event.id,
         "study_id": event.study_id,
         "mode_id": event.mode_id,
+        "action_id": event.action_id,
         "kind": event.kind,
         "occurred_at": event.occurred_at,
         "recorded_at": event.recorded_at,
@@ -81,14 +148,19 @@ def event_view(event):
         "study_max_rpn": event.study_max_rpn,
         "study_needs_action_count": event.study_needs_action_count,
         "study_revision": event.study_revision,
+        "study_open_actions": event.study_open_actions,
+        "rating_raised": event.rating_raised,
+        "change_by_cause": {cause.removeprefix("change_"): getattr(event, cause) for cause in CAUSES},
     }
 
 
-def events_query(study_id, mode_id=None, kind=None):
-    """The study's events (optionally of one mode or kind), for pagination by the caller."""
+def events_query(study_id, mode_id=None, kind=None, action_id=None):
+    """The study's events (optionally of one mode, action or kind), for pagination by the caller."""
     query = RiskEvent.select().where(RiskEvent.study == study_id)
     if mode_id is not None:
         query = query.where(RiskEvent.mode == mode_id)
+    if action_id is not None:
+        query = query.where(RiskEvent.action == action_id)
     if kind is not None:
         query = query.where(RiskEvent.kind == kind)
     return query

@@ -4,11 +4,11 @@ from abate.db import database
 from abate.domain import events as risk_events
 from abate.domain.clock import utcnow
 from abate.domain.scales import check_ratings
-from abate.domain.scoring import Ratings, assess
+from abate.domain.scoring import Ratings, assess, projected_ratings
 from abate.domain.studies import get_study, policy_of, require_open_for_changes
 from abate.domain.versions import check_version
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
-from abate.models import RATING_DIMENSIONS, FailureMode
+from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode
 
 TEXT_FIELDS = (
     "item",
@@ -44,20 +44,27 @@ def initial_ratings_of(mode):
     return Ratings(mode.initial_severity, mode.initial_occurrence, mode.initial_detection)
 
 
-def _set_ratings(mode, ratings):
+def apply_ratings(mode, ratings):
+    """Set the mode's three ratings and its stored RPN (unsaved)."""
     mode.severity, mode.occurrence, mode.detection = ratings.severity, ratings.occurrence, ratings.detection
     mode.rpn = ratings.rpn
 
 
 def create_mode(study_id, data, *, actor, source, reason=""):
-    """Add a failure mode to a study and record its creation event."""
+    """Add a failure mode to a study and record its creation event (at data's effective_at, if any)."""
     with database.atomic():
         study = risk_events.lock_study(study_id)
         require_open_for_changes(study)
         check_ratings(study.scale_set, data)
+        occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
         ratings = Ratings(data["severity"], data["occurrence"], data["detection"])
-        mode = FailureMode(study=study, **{name: data[name] for name in TEXT_FIELDS if name in data})
-        _set_ratings(mode, ratings)
+        mode = FailureMode(
+            study=study,
+            created_at=occurred_at,
+            updated_at=occurred_at,
+            **{name: data[name] for name in TEXT_FIELDS if name in data},
+        )
+        apply_ratings(mode, ratings)
         mode.initial_severity, mode.initial_occurrence, mode.initial_detection = (
             ratings.severity,
             ratings.occurrence,
@@ -65,12 +72,19 @@ def create_mode(study_id, data, *, actor, source, reason=""):
         )
         mode.save()
         risk_events.record_event(
-            study, "created", mode=mode, after=ratings, actor=actor, source=source, reason=reason
+            study,
+            "created",
+            mode=mode,
+            after=ratings,
+            actor=actor,
+            source=source,
+            reason=reason,
+            occurred_at=occurred_at,
         )
     return mode
 
 
-def _locked_active_mode(mode_id):
+def locked_active_mode(mode_id):
     """Lock the mode's study, then return (study, mode); a retired mode or archived study is a Conflict."""
     study = risk_events.lock_study(get_mode(mode_id).study_id)
     mode = FailureMode.get_by_id(mode_id)
@@ -83,7 +97,7 @@ def _locked_active_mode(mode_id):
 def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
     """Change a mode's text and/or ratings; a rating change needs a reason and appends an event."""
     with database.atomic():
-        study, mode = _locked_active_mode(mode_id)
+        study, mode = locked_active_mode(mode_id)
         check_version(mode.version, expected_versions)
         before = ratings_of(mode)
         rating_changes = {name: changes[name] for name in RATING_DIMENSIONS if name in changes}
@@ -93,10 +107,11 @@ def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
             raise ValidationFailed(
                 "a re-rating needs a reason", errors=[field_error("reason", "required when a rating changes")]
             )
+        occurred_at = risk_events.resolve_effective_at(study, changes.get("effective_at"))
         for name in TEXT_FIELDS:
             if name in changes:
                 setattr(mode, name, changes[name])
-        _set_ratings(mode, after)
+        apply_ratings(mode, after)
         mode.version += 1
         mode.updated_at = utcnow()
         mode.save()
@@ -110,6 +125,7 @@ def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
                 actor=actor,
                 source=source,
                 reason=changes["reason"].strip(),
+                occurred_at=occurred_at,
             )
     return mode
 
@@ -117,8 +133,12 @@ def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
 def retire_mode(mode_id, reason, *, actor, source, expected_versions=None):
     """Take a mode out of the study's risk (never deleted); its event is a retirement, not a reduction."""
     with database.atomic():
-        study, mode = _locked_active_mode(mode_id)
+        study, mode = locked_active_mode(mode_id)
         check_version(mode.version, expected_versions)
+        if CorrectiveAction.select().where((CorrectiveAction.mode == mode) & CorrectiveAction.unfinished()).exists():
+            raise Conflict(
+                f"failure mode {mode_id} has open corrective actions; close or cancel them before retiring it"
+            )
         mode.status = "retired"
         mode.retired_at = mode.updated_at = utcnow()
         mode.version += 1
@@ -145,8 +165,26 @@ def modes_query(study_id, status=None, needs_action=None, priority=None, min_rpn
     return query
 
 
+def unfinished_targets(mode_ids):
+    """{mode_id: [target dicts of its open or in-progress actions]} for the given modes."""
+    targets = {mode_id: [] for mode_id in mode_ids}
+    query = CorrectiveAction.select().where(CorrectiveAction.mode.in_(list(mode_ids)) & CorrectiveAction.unfinished())
+    for action in query:
+        targets[action.mode_id].append({name: getattr(action, f"target_{name}") for name in RATING_DIMENSIONS})
+    return targets
+
+
+def projected_of(mode, targets):
+    """The mode's ratings if its open actions meet their targets (a retired mode projects nothing)."""
+    if mode.status != "active":
+        return ratings_of(mode)
+    return projected_ratings(ratings_of(mode), targets)
+
+
 def mode_views(modes, study=None):
     """The modes as plain data for the API, scored by their study's policy."""
+    modes = list(modes)
+    targets = unfinished_targets([mode.id for mode in modes])
     studies = {}
     views = []
     for mode in modes:
@@ -163,6 +201,8 @@ def mode_views(modes, study=None):
                 **current.as_dict(),
                 "criticality": current.criticality,
                 "initial": initial_ratings_of(mode).as_dict(),
+                "projected": projected_of(mode, targets[mode.id]).as_dict(),
+                "open_actions": len(targets[mode.id]),
                 "needs_action": assessment.needs_action,
                 "needs_action_reasons": list(assessment.reasons),
                 "priority": assessment.priority,

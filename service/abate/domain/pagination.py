@@ -31,9 +31,9 @@ def _decode(cursor, order):
             raise ValueError("wrong length")
         return [
             datetime.datetime.fromisoformat(value) if isinstance(field, pw.DateTimeField) else int(value)
-            for (field, _), value in zip(order, values)
+            for (field, _), value in zip(order, values, strict=True)
         ]
-    except (ValueError, TypeError, UnicodeDecodeError) as error:
+    except (ValueError, TypeError, OverflowError) as error:
         raise ValidationFailed(
             "the cursor is not one this list handed out",
             errors=[field_error("cursor", "malformed; pass the `next` link of a previous page as it is", "query")],

@@ -63,9 +63,9 @@ def _apply(scale_set, data):
     scale_set.default_action_threshold = data.get("default_action_threshold") or scoring.default_action_threshold(
         scale_set.max_rpn
     )
-    scale_set.default_severity_threshold = data.get(
-        "default_severity_threshold"
-    ) or scoring.default_severity_threshold(scale_set.severity_max)
+    scale_set.default_severity_threshold = data.get("default_severity_threshold") or scoring.default_severity_threshold(
+        scale_set.severity_max
+    )
     _check_defaults(scale_set)
     return [
         ScaleLevel(dimension=dimension, value=level["value"], label=level["label"], criteria=level.get("criteria", ""))

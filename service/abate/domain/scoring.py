@@ -36,6 +36,20 @@ class Ratings:
         }
 
 
+def projected_ratings(current, targets):
+    """Each rating at the lowest of its current value and every open action's target for it.
+
+    targets is an iterable of dicts that may omit any rating; a target above the current value
+    never raises the projection.
+    """
+    lowest = {name: getattr(current, name) for name in ("severity", "occurrence", "detection")}
+    for target in targets:
+        for name, value in target.items():
+            if value is not None and value < lowest[name]:
+                lowest[name] = value
+    return Ratings(**lowest)
+
+
 @dataclass(frozen=True)
 class RiskPolicy:
     """A study's rules: act at or above an RPN, and at or above a severity whatever the RPN."""
@@ -79,8 +93,8 @@ def assess(ratings, policy):
 
 
 def default_severity_threshold(severity_max):
-    """The top fifth of a severity scale: 9 on 1-10, 5 on 1-5 (common practice, no source)."""
-    return severity_max - severity_max // 5 + 1
+    """The top fifth of a severity scale, at least its top level: 9 on 1-10, 5 on 1-5 (common practice, no source)."""
+    return min(severity_max, severity_max - severity_max // 5 + 1)
 
 
 def default_action_threshold(max_rpn):

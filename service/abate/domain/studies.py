@@ -6,12 +6,12 @@ import peewee as pw
 
 from abate.db import database
 from abate.domain import events as risk_events
-from abate.domain.clock import utcnow
+from abate.domain.clock import local_today, utcnow
 from abate.domain.scales import get_scale_set
-from abate.domain.scoring import RiskPolicy
+from abate.domain.scoring import Ratings, RiskPolicy, assess, projected_ratings
 from abate.domain.versions import check_version
 from abate.errors import Conflict, InvalidTransition, NotFound, ValidationFailed, field_error
-from abate.models import FailureMode, Study, StudyTag
+from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode, Study, StudyTag
 
 STUDY_KINDS = ("design", "process", "system", "other")
 STUDY_STATUSES = ("draft", "active", "archived")
@@ -164,7 +164,7 @@ def _tags_by_study(study_ids):
 
 
 def risk_summaries(studies):
-    """Return {study_id: summary} for the given studies in one grouped query (plus Pareto rows)."""
+    """Return {study_id: summary} for the given studies: a few grouped queries, not one per study."""
     ids = [study.id for study in studies]
     summaries = {study.id: _empty_summary() for study in studies}
     if not ids:
@@ -201,17 +201,67 @@ def risk_summaries(studies):
             needs_action_count=high,
             by_priority={"high": high, "medium": medium_count, "low": int(row["modes"]) - high - medium_count},
         )
+    _add_action_figures(studies, summaries)
+    for summary in summaries.values():
+        reduction = summary["initial_total_rpn"] - summary["total_rpn"]
+        summary["reduction"] = {
+            "points": reduction,
+            "percent": round(100 * reduction / summary["initial_total_rpn"], 1)
+            if summary["initial_total_rpn"]
+            else 0.0,
+        }
     return summaries
+
+
+def _add_action_figures(studies, summaries):
+    """Projected totals, open and overdue action counts, and how many needs-action modes are covered."""
+    by_id = {study.id: study for study in studies}
+    unfinished = (
+        CorrectiveAction.select(CorrectiveAction, FailureMode)
+        .join(FailureMode)
+        .where(
+            CorrectiveAction.study.in_(list(by_id)) & CorrectiveAction.unfinished() & (FailureMode.status == "active")
+        )
+    )
+    targets_by_mode, mode_of = {}, {}
+    for action in unfinished:
+        study = by_id[action.study_id]
+        summary = summaries[study.id]
+        summary["open_actions"] += 1
+        if action.due_date < local_today(study.timezone):
+            summary["overdue_actions"] += 1
+        mode_of[action.mode_id] = action.mode
+        targets_by_mode.setdefault(action.mode_id, []).append(
+            {name: getattr(action, f"target_{name}") for name in RATING_DIMENSIONS}
+        )
+    for summary in summaries.values():
+        summary["projected_total_rpn"] = summary["total_rpn"]
+    for mode_id, targets in targets_by_mode.items():
+        mode = mode_of[mode_id]
+        current = Ratings(mode.severity, mode.occurrence, mode.detection)
+        summary = summaries[mode.study_id]
+        summary["projected_total_rpn"] -= current.rpn - projected_ratings(current, targets).rpn
+        if assess(current, policy_of(by_id[mode.study_id])).needs_action:
+            summary["needs_action_with_open_action"] += 1
+    for summary in summaries.values():
+        needing = summary["needs_action_count"]
+        summary["needs_action_covered_percent"] = (
+            round(100 * summary["needs_action_with_open_action"] / needing, 1) if needing else 100.0
+        )
 
 
 def _empty_summary():
     return {
         "total_rpn": 0,
         "initial_total_rpn": 0,
+        "projected_total_rpn": 0,
         "max_rpn": 0,
         "needs_action_count": 0,
+        "needs_action_with_open_action": 0,
         "mode_count": 0,
         "retired_count": 0,
+        "open_actions": 0,
+        "overdue_actions": 0,
         "by_priority": {"high": 0, "medium": 0, "low": 0},
         "caution": CAUTION,
     }

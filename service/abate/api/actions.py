@@ -1,0 +1,267 @@
+"""/v1/actions and /v1/modes/{id}/actions: corrective actions, their closure and their effect."""
+
+import marshmallow as ma
+from flask.views import MethodView
+from flask_smorest import Blueprint
+
+from abate.api.common import (
+    IF_MATCH_PARAMETER,
+    REQUEST_ACTOR,
+    REQUEST_SOURCE,
+    Id,
+    PageArgsSchema,
+    Rating,
+    ReasonSchema,
+    UTCDateTime,
+    etag,
+    expected_versions,
+    list_schema,
+    page_of,
+)
+from abate.api.studies import OwnerSchema, RatingsSchema
+from abate.domain import actions
+from abate.domain.clock import local_today
+from abate.domain.studies import CAUTION
+
+blp = Blueprint("actions", __name__, url_prefix="/v1", description="Corrective actions")
+
+
+class TargetSchema(ma.Schema):
+    """Ratings, any of which may be omitted."""
+
+    severity = Rating(allow_none=True)
+    occurrence = Rating(allow_none=True)
+    detection = Rating(allow_none=True)
+
+
+class ExternalRefSchema(ma.Schema):
+    """The action's key in another system (ticketing, maintenance); unique per system."""
+
+    system = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=100))
+    key = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
+
+
+class ActionSchema(ma.Schema):
+    """A corrective action on a failure mode."""
+
+    id = ma.fields.Integer(dump_only=True)
+    mode_id = ma.fields.Integer(dump_only=True)
+    study_id = ma.fields.Integer(dump_only=True)
+    title = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=300))
+    description = ma.fields.String(validate=ma.validate.Length(max=10000))
+    kind = ma.fields.String(
+        required=True,
+        validate=ma.validate.OneOf(actions.ACTION_KINDS),
+        metadata={
+            "description": "prevention (aims at occurrence), detection (aims at detection), "
+            "design_change (may lower severity)"
+        },
+    )
+    owner = ma.fields.Nested(OwnerSchema, required=True)
+    due_date = ma.fields.Date(required=True)
+    original_due_date = ma.fields.Date(dump_only=True)
+    due_date_changes = ma.fields.Integer(dump_only=True, metadata={"description": "How often the due date moved"})
+    status = ma.fields.String(
+        validate=ma.validate.OneOf(actions.UNFINISHED),
+        metadata={"description": "open, in_progress, closed or cancelled (close and cancel have their own operations)"},
+    )
+    overdue = ma.fields.Boolean(
+        dump_only=True, metadata={"description": "Unfinished and today (study time zone) is after the due date"}
+    )
+    days_overdue = ma.fields.Integer(dump_only=True)
+    target = ma.fields.Nested(
+        TargetSchema, allow_none=True, metadata={"description": "Ratings expected after the action"}
+    )
+    external_ref = ma.fields.Nested(ExternalRefSchema, allow_none=True)
+    result = ma.fields.Nested(
+        TargetSchema, dump_only=True, allow_none=True, metadata={"description": "Verified ratings"}
+    )
+    rating_raised = ma.fields.Boolean(dump_only=True, metadata={"description": "The verified result raised a rating"})
+    evidence = ma.fields.String(dump_only=True)
+    verified_by = ma.fields.String(dump_only=True)
+    closed_at = UTCDateTime(dump_only=True, allow_none=True)
+    cancelled_at = UTCDateTime(dump_only=True, allow_none=True)
+    version = ma.fields.Integer(dump_only=True)
+    created_at = UTCDateTime(dump_only=True)
+    updated_at = UTCDateTime(dump_only=True)
+
+
+class ActionPatchSchema(ActionSchema):
+    """A change to an unfinished action; every field optional."""
+
+    reason = ma.fields.String(
+        validate=ma.validate.Length(max=2000), metadata={"description": "Why, e.g. for a new due date"}
+    )
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **{"partial": True, **kwargs})
+
+
+class CloseSchema(ma.Schema):
+    """The verified outcome of an action."""
+
+    result = ma.fields.Nested(
+        TargetSchema,
+        load_default=dict,
+        metadata={"description": "Verified ratings after the action; omitted ones stay"},
+    )
+    evidence = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=10000))
+    verified_by = ma.fields.String(load_default="", validate=ma.validate.Length(max=200))
+    effective_at = UTCDateTime(
+        metadata={
+            "description": "When the closure took effect, for recording past work; not before the study's latest event"
+        }
+    )
+
+
+class ActionQueryArgsSchema(PageArgsSchema):
+    """Filters and order of the action list."""
+
+    study_id = Id(strict=False)
+    mode_id = Id(strict=False)
+    status = ma.fields.String(validate=ma.validate.OneOf(actions.ACTION_STATUSES))
+    owner_email = ma.fields.String(metadata={"description": "Case-insensitive"})
+    overdue = ma.fields.Boolean()
+    due_before = ma.fields.Date()
+    due_after = ma.fields.Date()
+    external_system = ma.fields.String()
+    external_key = ma.fields.String()
+    sort = ma.fields.String(load_default="due_date", validate=ma.validate.OneOf(tuple(actions.ACTION_SORTS)))
+
+
+class ActionEffectSchema(ma.Schema):
+    """What one closed action planned and achieved."""
+
+    action_id = ma.fields.Integer()
+    mode_id = ma.fields.Integer()
+    title = ma.fields.String()
+    kind = ma.fields.String()
+    owner = ma.fields.Nested(OwnerSchema)
+    closed_at = UTCDateTime()
+    before = ma.fields.Nested(RatingsSchema)
+    planned = ma.fields.Nested(RatingsSchema, metadata={"description": "The before ratings with the targets applied"})
+    achieved = ma.fields.Nested(RatingsSchema)
+    rpn_removed = ma.fields.Integer()
+    planned_rpn_removed = ma.fields.Integer()
+    met_target = ma.fields.Boolean()
+    rating_raised = ma.fields.Boolean()
+
+
+class ActionEffectListSchema(ma.Schema):
+    """Closed actions ranked by risk removed."""
+
+    items = ma.fields.List(ma.fields.Nested(ActionEffectSchema), required=True)
+    caution = ma.fields.String()
+
+
+def _respond(action, status=200):
+    view = actions.action_view(action)
+    # "overdue" changes with the date, so today's date in the study's zone is part of the ETag.
+    headers = {"ETag": etag(action.version, local_today(action.study.timezone).toordinal())}
+    if status == 201:
+        headers["Location"] = f"/v1/actions/{action.id}"
+    return view, status, headers
+
+
+@blp.route("/modes/<int:mode_id>/actions")
+class ModeActions(MethodView):
+    """Actions on one failure mode."""
+
+    @blp.arguments(ActionSchema)
+    @blp.response(201, ActionSchema)
+    @blp.alt_response(409, description="The mode is retired, its study archived, or the external reference taken")
+    def post(self, data, mode_id):
+        """Open a corrective action on a mode."""
+        return _respond(actions.create_action(mode_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE), 201)
+
+
+@blp.route("/actions")
+class Actions(MethodView):
+    """All corrective actions."""
+
+    @blp.arguments(ActionQueryArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(200, list_schema(ActionSchema))
+    def get(self, args):
+        """List actions by due date; overdue is judged in each study's time zone."""
+        query = actions.actions_query(args)
+        return page_of(query, actions.ACTION_SORTS[args["sort"]], args, actions.action_views)
+
+
+@blp.route("/actions/<int:action_id>")
+class ActionById(MethodView):
+    """One corrective action."""
+
+    @blp.response(200, ActionSchema)
+    def get(self, action_id):
+        """Read an action."""
+        return _respond(actions.get_action(action_id))
+
+    @blp.arguments(ActionPatchSchema)
+    @blp.response(200, ActionSchema)
+    @blp.alt_response(409, description="The action is closed or cancelled")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def patch(self, changes, action_id):
+        """Change an unfinished action: owner, due date (counted), status open/in_progress, target."""
+        action = actions.update_action(
+            action_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(action)
+
+
+@blp.route("/actions/<int:action_id>/close")
+class ActionClosure(MethodView):
+    """Closing an action with its verified result."""
+
+    @blp.arguments(CloseSchema)
+    @blp.response(200, ActionSchema)
+    @blp.alt_response(409, description="Already closed or cancelled, or effective_at precedes the latest event")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def post(self, data, action_id):
+        """Close: the action closes and its mode is re-rated to the result, in one transaction."""
+        action = actions.close_action(
+            action_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(action)
+
+
+@blp.route("/actions/<int:action_id>/reopen")
+class ActionReopening(MethodView):
+    """Reopening a closed action."""
+
+    @blp.arguments(ReasonSchema)
+    @blp.response(200, ActionSchema)
+    @blp.alt_response(409, description="The action is not closed")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def post(self, data, action_id):
+        """Reopen: the ratings the closure changed go back to their values before it."""
+        action = actions.reopen_action(
+            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(action)
+
+
+@blp.route("/actions/<int:action_id>/cancel")
+class ActionCancellation(MethodView):
+    """Cancelling an unfinished action."""
+
+    @blp.arguments(ReasonSchema)
+    @blp.response(200, ActionSchema)
+    @blp.alt_response(409, description="The action is closed or cancelled")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def post(self, data, action_id):
+        """Cancel: the action is dropped and the ratings stay."""
+        action = actions.cancel_action(
+            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+        )
+        return _respond(action)
+
+
+@blp.route("/studies/<int:study_id>/actions/effect")
+class ActionEffects(MethodView):
+    """What the study's closed actions achieved."""
+
+    @blp.response(200, ActionEffectListSchema)
+    def get(self, study_id):
+        """Closed actions ranked by risk removed, planned (target) against achieved (result)."""
+        return {"items": actions.action_effects(study_id), "caution": CAUTION}
