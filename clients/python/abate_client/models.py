@@ -1,0 +1,167 @@
+"""Frozen views of the server's JSON under its field names; a resource read alone keeps its ETag."""
+
+import dataclasses
+import datetime
+from typing import Any, ClassVar
+
+
+def _timestamp(value):
+    return None if value is None else datetime.datetime.fromisoformat(value)
+
+
+def _ratings(value):
+    return None if value is None else Ratings.from_json(value)
+
+
+class _FromJson:
+    """Builds a dataclass from a JSON object; keys it does not know (a newer server's) are ignored."""
+
+    converters: ClassVar[dict] = {}
+
+    @classmethod
+    def from_json(cls, data, **extra):
+        """Build the object from a decoded JSON object plus what the body does not carry (the etag)."""
+        known = {field.name for field in dataclasses.fields(cls)}
+        values = {name: value for name, value in data.items() if name in known}
+        for name, convert in cls.converters.items():
+            if name in values:
+                values[name] = convert(values[name])
+        return cls(**values, **extra)
+
+
+_TIMESTAMPS = {"created_at": _timestamp, "updated_at": _timestamp}
+
+
+@dataclasses.dataclass(frozen=True)
+class Ratings(_FromJson):
+    """Severity, occurrence and detection with their RPN (S x O x D)."""
+
+    severity: int
+    occurrence: int
+    detection: int
+    rpn: int
+
+
+@dataclasses.dataclass(frozen=True)
+class ScaleSet(_FromJson):
+    """A rating scale set; each dimension is {"max": int, "levels": [{"value", "label", "criteria"}]}."""
+
+    converters: ClassVar[dict] = _TIMESTAMPS
+
+    id: int
+    name: str
+    description: str
+    severity: dict[str, Any]
+    occurrence: dict[str, Any]
+    detection: dict[str, Any]
+    default_action_threshold: int
+    default_severity_threshold: int
+    builtin: bool
+    max_rpn: int
+    in_use: bool
+    version: int
+    created_at: datetime.datetime
+    updated_at: datetime.datetime
+    etag: str | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class RiskSummary(_FromJson):
+    """A study's risk over its active modes; `pareto` is filled on single-study reads only."""
+
+    total_rpn: int
+    initial_total_rpn: int
+    max_rpn: int
+    needs_action_count: int
+    mode_count: int
+    retired_count: int
+    by_priority: dict[str, int]
+    caution: str
+    pareto: list[dict[str, Any]] = dataclasses.field(default_factory=list)
+
+
+@dataclasses.dataclass(frozen=True)
+class Study(_FromJson):
+    """An FMEA study with its risk summary; `owner` is {"name", "email"}."""
+
+    converters: ClassVar[dict] = {**_TIMESTAMPS, "risk": RiskSummary.from_json}
+
+    id: int
+    title: str
+    kind: str
+    scope: str
+    tags: list[str]
+    site: str
+    product_line: str
+    owner: dict[str, str]
+    scale_id: int
+    timezone: str
+    status: str
+    action_threshold: int
+    severity_threshold: int
+    risk: RiskSummary
+    version: int
+    risk_revision: int
+    created_at: datetime.datetime
+    updated_at: datetime.datetime
+    etag: str | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class Mode(_FromJson):
+    """A failure mode with its current ratings, scores and the ratings it was created with."""
+
+    converters: ClassVar[dict] = {**_TIMESTAMPS, "retired_at": _timestamp, "initial": Ratings.from_json}
+
+    id: int
+    study_id: int
+    item: str
+    function: str
+    failure_mode: str
+    effect: str
+    cause: str
+    prevention_controls: str
+    detection_controls: str
+    severity: int
+    occurrence: int
+    detection: int
+    rpn: int
+    criticality: int
+    initial: Ratings
+    needs_action: bool
+    needs_action_reasons: list[str]
+    priority: str
+    status: str
+    version: int
+    created_at: datetime.datetime
+    updated_at: datetime.datetime
+    retired_at: datetime.datetime | None
+    etag: str | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class RiskEvent(_FromJson):
+    """One change to a study's risk, with the ratings before and after and the study's totals after it."""
+
+    converters: ClassVar[dict] = {
+        "occurred_at": _timestamp,
+        "recorded_at": _timestamp,
+        "before": _ratings,
+        "after": _ratings,
+    }
+
+    id: int
+    study_id: int
+    mode_id: int | None
+    kind: str
+    occurred_at: datetime.datetime
+    recorded_at: datetime.datetime
+    actor: str
+    source: str
+    reason: str
+    before: Ratings | None
+    after: Ratings | None
+    study_total_rpn: int
+    study_max_rpn: int
+    study_needs_action_count: int
+    study_revision: int
