@@ -123,9 +123,13 @@ def test_the_etag_of_a_study_moves_with_its_risk(client):
     assert client.get(f"/v1/studies/{study['id']}", headers={"If-None-Match": after.headers["ETag"]}).status_code == 304
 
 
-def test_an_old_study_etag_still_matches_its_own_version_on_patch(client):
+def test_a_study_etag_from_before_a_risk_event_no_longer_matches(client):
+    # If-Match compares whole strong tags (RFC 9110 section 13.1.1): the risk summary changed.
     study = make_study(client)
     etag_before_modes = client.get(f"/v1/studies/{study['id']}").headers["ETag"]
     make_mode(client, study["id"])
-    response = client.patch(f"/v1/studies/{study['id']}", json={"title": "Renamed"}, headers={"If-Match": etag_before_modes})
+    stale = client.patch(f"/v1/studies/{study['id']}", json={"title": "Renamed"}, headers={"If-Match": etag_before_modes})
+    assert stale.status_code == 412
+    current = client.get(f"/v1/studies/{study['id']}").headers["ETag"]
+    response = client.patch(f"/v1/studies/{study['id']}", json={"title": "Renamed"}, headers={"If-Match": current})
     assert response.status_code == 200 and response.get_json()["title"] == "Renamed"

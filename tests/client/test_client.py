@@ -137,7 +137,7 @@ def test_study_update_sends_if_match_and_a_stale_copy_is_precondition_failed(api
     with pytest.raises(PreconditionFailed) as caught:
         api.studies.update(study, title="Lost update")
     assert caught.value.status == 412 and caught.value.problem["type"] == "urn:abate:problem:precondition-failed"
-    assert "version" in caught.value.detail
+    assert "ETag" in caught.value.detail
     assert api.studies.get(study.id).title == "Press line 2"
 
 

@@ -14,14 +14,14 @@ from abate.api.common import (
     ReasonSchema,
     UTCDateTime,
     etag,
-    expected_versions,
+    if_match_tags,
     list_schema,
     page_of,
 )
 from abate.api.studies import OwnerSchema, RatingsSchema
 from abate.domain import actions
-from abate.domain.clock import local_today
 from abate.domain.studies import CAUTION
+from abate.domain.versions import action_tag
 
 blp = Blueprint("actions", __name__, url_prefix="/v1", description="Corrective actions")
 
@@ -156,8 +156,7 @@ class ActionEffectListSchema(ma.Schema):
 
 def _respond(action, status=200):
     view = actions.action_view(action)
-    # "overdue" changes with the date, so today's date in the study's zone is part of the ETag.
-    headers = {"ETag": etag(action.version, local_today(action.study.timezone).toordinal())}
+    headers = {"ETag": etag(action_tag(action, action.study))}
     if status == 201:
         headers["Location"] = f"/v1/actions/{action.id}"
     return view, status, headers
@@ -204,7 +203,7 @@ class ActionById(MethodView):
     def patch(self, changes, action_id):
         """Change an unfinished action: owner, due date (counted), status open/in_progress, target."""
         action = actions.update_action(
-            action_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            action_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 
@@ -220,7 +219,7 @@ class ActionClosure(MethodView):
     def post(self, data, action_id):
         """Close: the action closes and its mode is re-rated to the result, in one transaction."""
         action = actions.close_action(
-            action_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            action_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 
@@ -236,7 +235,7 @@ class ActionReopening(MethodView):
     def post(self, data, action_id):
         """Reopen: the ratings the closure changed go back to their values before it."""
         action = actions.reopen_action(
-            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 
@@ -252,7 +251,7 @@ class ActionCancellation(MethodView):
     def post(self, data, action_id):
         """Cancel: the action is dropped and the ratings stay."""
         action = actions.cancel_action(
-            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 

@@ -95,21 +95,16 @@ def page_of(query, order, args, to_views):
     return {"items": to_views(page.rows), "next": next_url}
 
 
-def etag(version, *context):
-    """A strong ETag: the resource's version first, then what else its representation depends on."""
-    return '"' + ".".join(str(part) for part in (version, *context)) + '"'
+def etag(tag):
+    """The ETag header value of an opaque strong tag from domain.versions."""
+    return f'"{tag}"'
 
 
-def expected_versions():
-    """The versions If-Match names (None without the header or with *); other tags match none."""
+def if_match_tags():
+    """The strong tags If-Match names; None without the header or with * (weak tags never match)."""
     if not request.if_match or request.if_match.star_tag:
         return None
-    versions = set()
-    for tag in request.if_match.as_set():
-        head = tag.split(".", 1)[0]
-        if head.isdigit():
-            versions.add(int(head))
-    return versions
+    return set(request.if_match.as_set())
 
 
 IF_MATCH_PARAMETER = {

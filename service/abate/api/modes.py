@@ -13,7 +13,7 @@ from abate.api.common import (
     ReasonSchema,
     UTCDateTime,
     etag,
-    expected_versions,
+    if_match_tags,
     list_schema,
     page_of,
 )
@@ -21,6 +21,7 @@ from abate.api.studies import RatingsSchema
 from abate.domain import modes
 from abate.domain.scoring import PRIORITY_BANDS
 from abate.domain.studies import get_study
+from abate.domain.versions import mode_tag
 
 blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes")
 
@@ -99,8 +100,7 @@ class ModeQueryArgsSchema(PageArgsSchema):
 def _respond(mode, status=200):
     view = modes.mode_view(mode)
     study = get_study(mode.study_id)
-    # Scores depend on the study's policy, so its version is part of the mode's ETag.
-    headers = {"ETag": etag(mode.version, study.version)}
+    headers = {"ETag": etag(mode_tag(mode, study))}
     if status == 201:
         headers["Location"] = f"/v1/modes/{mode.id}"
     return view, status, headers
@@ -145,7 +145,7 @@ class ModeById(MethodView):
     def patch(self, changes, mode_id):
         """Change a mode's text, or re-rate it with a reason (appends a risk event)."""
         mode = modes.update_mode(
-            mode_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            mode_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(mode)
 
@@ -161,6 +161,6 @@ class ModeRetirement(MethodView):
     def post(self, data, mode_id):
         """Retire a mode (a retirement event, not a risk reduction)."""
         mode = modes.retire_mode(
-            mode_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            mode_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(mode)

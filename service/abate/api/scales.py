@@ -4,8 +4,9 @@ import marshmallow as ma
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
-from abate.api.common import IF_MATCH_PARAMETER, UTCDateTime, etag, expected_versions
+from abate.api.common import IF_MATCH_PARAMETER, UTCDateTime, etag, if_match_tags
 from abate.domain import scales
+from abate.domain.versions import scale_set_tag
 
 blp = Blueprint("scales", __name__, url_prefix="/v1/scales", description="Rating scale sets")
 
@@ -69,7 +70,7 @@ class ScaleSetListSchema(ma.Schema):
 
 def _respond(scale_set, status=200):
     view = scales.scale_set_view(scale_set)
-    headers = {"ETag": etag(view["version"])}
+    headers = {"ETag": etag(scale_set_tag(scale_set))}
     if status == 201:
         headers["Location"] = f"/v1/scales/{view['id']}"
     return view, status, headers
@@ -106,4 +107,4 @@ class ScaleSetById(MethodView):
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def put(self, data, scale_id):
         """Replace a scale set that no study uses yet."""
-        return _respond(scales.replace_scale_set(scale_id, data, expected_versions()))
+        return _respond(scales.replace_scale_set(scale_id, data, if_match_tags()))

@@ -12,13 +12,14 @@ from abate.api.common import (
     PageArgsSchema,
     UTCDateTime,
     etag,
-    expected_versions,
+    if_match_tags,
     list_schema,
     page_of,
 )
 from abate.domain import events as risk_events
 from abate.domain import studies
 from abate.domain.events import EVENT_KINDS
+from abate.domain.versions import study_tag
 from abate.models import RiskEvent, Study
 
 blp = Blueprint("studies", __name__, url_prefix="/v1/studies", description="FMEA studies")
@@ -182,13 +183,8 @@ class RiskEventQueryArgsSchema(PageArgsSchema):
     kind = ma.fields.String(validate=ma.validate.OneOf(EVENT_KINDS))
 
 
-def study_etag(study):
-    """A study's representation changes with its own version and with every risk event."""
-    return etag(study.version, study.risk_revision)
-
-
 def _respond(study, status=200):
-    headers = {"ETag": study_etag(study)}
+    headers = {"ETag": etag(study_tag(study))}
     if status == 201:
         headers["Location"] = f"/v1/studies/{study.id}"
     return studies.study_view(study), status, headers
@@ -226,9 +222,9 @@ class StudyById(MethodView):
     @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def patch(self, changes, study_id):
-        """Change a study; If-Match compares the study's own version (the first part of its ETag)."""
+        """Change a study; If-Match must name its current ETag, which moves with every risk event."""
         study = studies.update_study(
-            study_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_versions=expected_versions()
+            study_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(study)
 

@@ -9,7 +9,7 @@ from abate.domain.modes import apply_ratings, locked_active_mode, ratings_of
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings
 from abate.domain.studies import get_study, require_open_for_changes
-from abate.domain.versions import check_version
+from abate.domain.versions import action_tag, check_precondition
 from abate.errors import Conflict, InvalidTransition, NotFound
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, RiskEvent, Study
 
@@ -89,11 +89,11 @@ def _require_status(action, allowed, verb):
         raise InvalidTransition(f"corrective action {action.id} is {action.status}; it cannot be {verb}")
 
 
-def update_action(action_id, changes, *, actor, source, expected_versions=None):
+def update_action(action_id, changes, *, actor, source, expected_tags=None):
     """Change an unfinished action; a new due date is counted, the original kept."""
     with database.atomic():
         study, action = _locked_action(action_id)
-        check_version(action.version, expected_versions)
+        check_precondition(action_tag(action, study), expected_tags)
         _require_status(action, UNFINISHED, "changed")
         require_open_for_changes(study)
         if "status" in changes and changes["status"] not in UNFINISHED:
@@ -138,11 +138,11 @@ def _describe_change(tracked_before, action):
     return "; ".join(parts)
 
 
-def close_action(action_id, data, *, actor, source, expected_versions=None):
+def close_action(action_id, data, *, actor, source, expected_tags=None):
     """Close with verified result ratings and evidence: the action closes and the mode is re-rated, together."""
     with database.atomic():
         study, action = _locked_action(action_id)
-        check_version(action.version, expected_versions)
+        check_precondition(action_tag(action, study), expected_tags)
         _require_status(action, UNFINISHED, "closed")
         occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
         study, mode = locked_active_mode(action.mode_id)
@@ -190,11 +190,11 @@ def closing_event(action):
     )
 
 
-def reopen_action(action_id, reason, *, actor, source, expected_versions=None):
+def reopen_action(action_id, reason, *, actor, source, expected_tags=None):
     """Undo a closure: each rating that closure changed goes back to its value before it."""
     with database.atomic():
         study, action = _locked_action(action_id)
-        check_version(action.version, expected_versions)
+        check_precondition(action_tag(action, study), expected_tags)
         _require_status(action, ("closed",), "reopened")
         study, mode = locked_active_mode(action.mode_id)
         closure = closing_event(action)
@@ -230,11 +230,11 @@ def reopen_action(action_id, reason, *, actor, source, expected_versions=None):
     return action
 
 
-def cancel_action(action_id, reason, *, actor, source, expected_versions=None):
+def cancel_action(action_id, reason, *, actor, source, expected_tags=None):
     """Drop an unfinished action; the mode's ratings stay as they are."""
     with database.atomic():
         study, action = _locked_action(action_id)
-        check_version(action.version, expected_versions)
+        check_precondition(action_tag(action, study), expected_tags)
         _require_status(action, UNFINISHED, "cancelled")
         action.status = "cancelled"
         action.cancelled_at = action.updated_at = utcnow()

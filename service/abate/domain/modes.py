@@ -6,7 +6,7 @@ from abate.domain.clock import utcnow
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings, assess, projected_ratings
 from abate.domain.studies import get_study, policy_of, require_open_for_changes
-from abate.domain.versions import check_version
+from abate.domain.versions import check_precondition, mode_tag
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode
 
@@ -94,11 +94,11 @@ def locked_active_mode(mode_id):
     return study, mode
 
 
-def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
+def update_mode(mode_id, changes, *, actor, source, expected_tags=None):
     """Change a mode's text and/or ratings; a rating change needs a reason and appends an event."""
     with database.atomic():
         study, mode = locked_active_mode(mode_id)
-        check_version(mode.version, expected_versions)
+        check_precondition(mode_tag(mode, study), expected_tags)
         before = ratings_of(mode)
         rating_changes = {name: changes[name] for name in RATING_DIMENSIONS if name in changes}
         check_ratings(study.scale_set, rating_changes)
@@ -130,11 +130,11 @@ def update_mode(mode_id, changes, *, actor, source, expected_versions=None):
     return mode
 
 
-def retire_mode(mode_id, reason, *, actor, source, expected_versions=None):
+def retire_mode(mode_id, reason, *, actor, source, expected_tags=None):
     """Take a mode out of the study's risk (never deleted); its event is a retirement, not a reduction."""
     with database.atomic():
         study, mode = locked_active_mode(mode_id)
-        check_version(mode.version, expected_versions)
+        check_precondition(mode_tag(mode, study), expected_tags)
         if CorrectiveAction.select().where((CorrectiveAction.mode == mode) & CorrectiveAction.unfinished()).exists():
             raise Conflict(
                 f"failure mode {mode_id} has open corrective actions; close or cancel them before retiring it"

@@ -3,7 +3,7 @@
 from abate.db import database
 from abate.domain import scoring
 from abate.domain.clock import utcnow
-from abate.domain.versions import check_version
+from abate.domain.versions import check_precondition, scale_set_tag
 from abate.errors import NotFound, RatingOutOfScale, ScaleInUse, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, ScaleLevel, ScaleSet, Study
 
@@ -95,11 +95,11 @@ def create_scale_set(data, builtin=False):
     return scale_set
 
 
-def replace_scale_set(scale_id, data, expected_versions=None):
+def replace_scale_set(scale_id, data, expected_tags=None):
     """Rewrite a scale set that no study uses yet; one in use raises ScaleInUse."""
     with database.atomic():
         scale_set = get_scale_set(scale_id)
-        check_version(scale_set.version, expected_versions)
+        check_precondition(scale_set_tag(scale_set), expected_tags)
         if scale_set.builtin or Study.select().where(Study.scale_set == scale_set).exists():
             raise ScaleInUse(
                 "this scale set is built in or used by a study; create a new scale set instead, "

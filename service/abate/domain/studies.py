@@ -9,7 +9,7 @@ from abate.domain import events as risk_events
 from abate.domain.clock import local_today, utcnow
 from abate.domain.scales import get_scale_set
 from abate.domain.scoring import Ratings, RiskPolicy, assess, projected_ratings
-from abate.domain.versions import check_version
+from abate.domain.versions import check_precondition, study_tag
 from abate.errors import Conflict, InvalidTransition, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode, Study, StudyTag
 
@@ -96,11 +96,11 @@ def _scale_set_for(scale_id):
         raise ValidationFailed(error.detail, errors=[field_error("scale_id", error.detail)]) from error
 
 
-def update_study(study_id, changes, *, actor, source, expected_versions=None):
+def update_study(study_id, changes, *, actor, source, expected_tags=None):
     """Apply a partial change; a new risk policy is recorded as a risk event of its own."""
     with database.atomic():
         study = risk_events.lock_study(study_id)
-        check_version(study.version, expected_versions)
+        check_precondition(study_tag(study), expected_tags)
         old_policy = policy_of(study)
         if "status" in changes and changes["status"] != study.status:
             if changes["status"] not in STUDY_TRANSITIONS[study.status]:

@@ -1,11 +1,33 @@
-"""Optimistic concurrency: the version a client read must still be current when it writes."""
+"""Entity tags and optimistic concurrency: a write names the representation it was based on."""
 
+from abate.domain.clock import local_today
 from abate.errors import PreconditionFailed
 
 
-def check_version(current, expected_versions):
-    """Raise PreconditionFailed unless expected_versions is None (no condition) or holds current."""
-    if expected_versions is not None and current not in expected_versions:
-        raise PreconditionFailed(
-            f"the resource is at version {current}, not the one your If-Match names; read it again and retry"
-        )
+def scale_set_tag(scale_set):
+    """A scale set's representation changes only with its own version."""
+    return str(scale_set.version)
+
+
+def study_tag(study):
+    """A study's representation changes with its own version and with every risk event."""
+    return f"{study.version}.{study.risk_revision}"
+
+
+def mode_tag(mode, study):
+    """A mode's scores depend on its study's policy, so the study's version is part of its tag."""
+    return f"{mode.version}.{study.version}"
+
+
+def action_tag(action, study):
+    """Whether an action is overdue changes with the date in its study's time zone."""
+    return f"{action.version}.{local_today(study.timezone).toordinal()}"
+
+
+def check_precondition(current_tag, expected_tags):
+    """Raise PreconditionFailed unless expected_tags is None (no If-Match) or holds current_tag.
+
+    The comparison is of whole strong tags (RFC 9110 section 13.1.1).
+    """
+    if expected_tags is not None and current_tag not in expected_tags:
+        raise PreconditionFailed("the resource has changed since the ETag your If-Match names; read it again and retry")
