@@ -119,7 +119,7 @@ def _require_json_body():
 
 def init_app(app):
     """Create the Api for app, register every resource's blueprint and the request checks."""
-    from abate.api import actions, health, modes, scales, studies
+    from abate.api import actions, health, history, modes, scales, studies
 
     app.config.update(
         API_TITLE=API_TITLE,
@@ -142,7 +142,7 @@ def init_app(app):
     api.register_converter(
         BoundedIntegerConverter, lambda converter: {"type": "integer", "minimum": 0, "maximum": MAX_ID}
     )
-    for module in (health, scales, studies, modes, actions):
+    for module in (health, scales, studies, modes, actions, history):
         api.register_blueprint(module.blp)
     app.before_request(_require_json_body)
     return api

@@ -81,6 +81,10 @@ class ActionSchema(ma.Schema):
     verified_by = ma.fields.String(dump_only=True)
     closed_at = UTCDateTime(dump_only=True, allow_none=True)
     cancelled_at = UTCDateTime(dump_only=True, allow_none=True)
+    effective_at = UTCDateTime(
+        load_only=True,
+        metadata={"description": "When the action was decided, for recording past work; not before the latest event"},
+    )
     version = ma.fields.Integer(dump_only=True)
     created_at = UTCDateTime(dump_only=True)
     updated_at = UTCDateTime(dump_only=True)
@@ -91,6 +95,11 @@ class ActionPatchSchema(ActionSchema):
 
     reason = ma.fields.String(
         validate=ma.validate.Length(max=2000), metadata={"description": "Why, e.g. for a new due date"}
+    )
+    # Every status is accepted here so that finishing an action by PATCH is the life cycle's 409, not a 422.
+    status = ma.fields.String(
+        validate=ma.validate.OneOf(actions.ACTION_STATUSES),
+        metadata={"description": "open or in_progress; closed and cancelled are reached by their own operations"},
     )
 
     def __init__(self, *args, **kwargs):

@@ -56,6 +56,7 @@ def create_action(mode_id, data, *, actor, source):
         check_ratings(study.scale_set, {key: value for key, value in (data.get("target") or {}).items() if value})
         external_ref = data.get("external_ref")
         _check_external_ref_free(external_ref)
+        occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
         action = CorrectiveAction(
             mode=mode,
             study=study,
@@ -65,6 +66,8 @@ def create_action(mode_id, data, *, actor, source):
             due_date=data["due_date"],
             original_due_date=data["due_date"],
             status=data.get("status", "open"),
+            created_at=occurred_at,
+            updated_at=occurred_at,
             external_system=external_ref["system"] if external_ref else None,
             external_key=external_ref["key"] if external_ref else None,
         )
@@ -74,7 +77,9 @@ def create_action(mode_id, data, *, actor, source):
                 action.save()
         except pw.IntegrityError as error:
             raise Conflict("an action already carries this external reference") from error
-        risk_events.record_event(study, "action_created", mode=mode, action=action, actor=actor, source=source)
+        risk_events.record_event(
+            study, "action_created", mode=mode, action=action, actor=actor, source=source, occurred_at=occurred_at
+        )
     return action
 
 

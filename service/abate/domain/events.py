@@ -58,6 +58,8 @@ def resolve_effective_at(study, effective_at):
             "effective_at lies in the future", errors=[field_error("effective_at", "must not be later than now")]
         )
     previous = latest_event(study)
+    # Within the allowed skew a time a little ahead of ours counts as now: no event lies in the future.
+    effective_at = min(effective_at, now)
     if previous is not None and effective_at < previous.occurred_at:
         raise Conflict(
             f"effective_at precedes the study's latest event ({previous.occurred_at.isoformat()}Z); "
@@ -90,6 +92,8 @@ def record_event(
     sums = {cause: getattr(previous, cause) if previous else 0 for cause in CAUSES}
     if kind in CAUSE_OF_KIND:
         sums[CAUSE_OF_KIND[kind]] += delta
+    # Events stay in time order even if two machines' clocks disagree a little.
+    occurred_at = max(occurred_at or utcnow(), previous.occurred_at) if previous else (occurred_at or utcnow())
     study.total_rpn += delta
     study.risk_revision += 1
     study.save(only=[Study.total_rpn, Study.risk_revision])
@@ -99,7 +103,7 @@ def record_event(
         mode=mode,
         action=action,
         kind=kind,
-        occurred_at=occurred_at or utcnow(),
+        occurred_at=occurred_at,
         actor=actor,
         source=source,
         reason=reason or "",

@@ -19,7 +19,7 @@ class Page:
 
 
 def _encode(values):
-    plain = [value.isoformat() if isinstance(value, datetime.datetime) else value for value in values]
+    plain = [value.isoformat() if isinstance(value, datetime.date) else value for value in values]
     return base64.urlsafe_b64encode(json.dumps(plain).encode()).decode().rstrip("=")
 
 
@@ -29,15 +29,20 @@ def _decode(cursor, order):
         values = json.loads(base64.urlsafe_b64decode(padded.encode()).decode())
         if not isinstance(values, list) or len(values) != len(order):
             raise ValueError("wrong length")
-        return [
-            datetime.datetime.fromisoformat(value) if isinstance(field, pw.DateTimeField) else int(value)
-            for (field, _), value in zip(order, values, strict=True)
-        ]
+        return [_decode_value(field, value) for (field, _), value in zip(order, values, strict=True)]
     except (ValueError, TypeError, OverflowError) as error:
         raise ValidationFailed(
             "the cursor is not one this list handed out",
             errors=[field_error("cursor", "malformed; pass the `next` link of a previous page as it is", "query")],
         ) from error
+
+
+def _decode_value(field, value):
+    if isinstance(field, pw.DateTimeField):
+        return datetime.datetime.fromisoformat(value)
+    if isinstance(field, pw.DateField):
+        return datetime.date.fromisoformat(value)
+    return int(value)
 
 
 def _after(order, values):

@@ -42,7 +42,8 @@ def policy_of(study):
     return RiskPolicy(action_threshold=study.action_threshold, severity_threshold=study.severity_threshold)
 
 
-def _check_timezone(name):
+def check_timezone(name):
+    """Raise ValidationFailed unless name is an IANA time zone."""
     try:
         zoneinfo.ZoneInfo(name)
     except (zoneinfo.ZoneInfoNotFoundError, ValueError) as error:
@@ -72,7 +73,7 @@ def _set_tags(study, tags):
 def create_study(data):
     """Create a study; thresholds default to the scale set's defaults."""
     scale_set = _scale_set_for(data["scale_id"])
-    _check_timezone(data["timezone"])
+    check_timezone(data["timezone"])
     study = Study(
         **{name: data[name] for name in _PLAIN_FIELDS if name in data},
         owner_name=data["owner"]["name"],
@@ -111,7 +112,7 @@ def update_study(study_id, changes, *, actor, source, expected_tags=None):
                 raise Conflict("the study has failure modes rated on its scale set; it cannot change scales")
             study.scale_set = _scale_set_for(changes["scale_id"])
         if "timezone" in changes:
-            _check_timezone(changes["timezone"])
+            check_timezone(changes["timezone"])
         for name in _PLAIN_FIELDS:
             if name in changes:
                 setattr(study, name, changes[name])

@@ -1,0 +1,212 @@
+"""/v1/studies/{id}/history and /v1/history: how risk fell over time, and where it is heading."""
+
+import marshmallow as ma
+from flask.views import MethodView
+from flask_smorest import Blueprint
+
+from abate.api.common import UTCDateTime
+from abate.domain import history
+from abate.domain.clock import local_today
+from abate.domain.projection import projection
+from abate.domain.studies import CAUTION, check_timezone, get_study, studies_query
+from abate.errors import ValidationFailed, field_error
+from abate.models import FailureMode, Study
+
+blp = Blueprint("history", __name__, url_prefix="/v1", description="Risk history and projection")
+
+_INTERVAL = ma.fields.String(
+    load_default="week",
+    validate=ma.validate.OneOf(history.INTERVALS),
+    metadata={"description": "day, week (ISO 8601, Monday first) or month, in local time"},
+)
+
+
+class RangeArgsSchema(ma.Schema):
+    """An interval and a date range."""
+
+    interval = _INTERVAL
+    from_ = ma.fields.Date(data_key="from", metadata={"description": "First local date (default: the first event)"})
+    to = ma.fields.Date(metadata={"description": "Last local date (default: today)"})
+
+
+class HistoryArgsSchema(RangeArgsSchema):
+    """What a study's history should hold."""
+
+    modes = ma.fields.String(metadata={"description": "all, or comma-separated mode ids, for per-mode RPN series"})
+
+
+class PortfolioArgsSchema(RangeArgsSchema):
+    """Which studies a portfolio history sums, and in which time zone its intervals run."""
+
+    tag = ma.fields.String()
+    site = ma.fields.String()
+    kind = ma.fields.String()
+    status = ma.fields.String()
+    owner_email = ma.fields.String()
+    timezone = ma.fields.String(load_default="UTC", metadata={"description": "IANA zone of the intervals"})
+
+
+class ChangeSchema(ma.Schema):
+    """RPN change since the previous point, by cause."""
+
+    actions = ma.fields.Integer(metadata={"description": "Closed (and reopened) corrective actions"})
+    rerating = ma.fields.Integer(metadata={"description": "Re-ratings outside actions"})
+    retirements = ma.fields.Integer(metadata={"description": "Modes retired: removed, not reduced"})
+    new_modes = ma.fields.Integer(metadata={"description": "Modes added"})
+
+
+class HistoryPointSchema(ma.Schema):
+    """The state at the end of one interval (the last one: now)."""
+
+    at = UTCDateTime()
+    period = ma.fields.String(metadata={"description": "e.g. 2026-11-30, 2026-W49 or 2026-12"})
+    in_progress = ma.fields.Boolean()
+    total_rpn = ma.fields.Integer()
+    max_rpn = ma.fields.Integer()
+    needs_action_count = ma.fields.Integer()
+    open_actions = ma.fields.Integer()
+    overdue_actions = ma.fields.Integer()
+    change = ma.fields.Nested(ChangeSchema)
+
+
+class ModeSeriesSchema(ma.Schema):
+    """One mode's RPN at each point (null where it was not active)."""
+
+    mode_id = ma.fields.Integer()
+    item = ma.fields.String()
+    failure_mode = ma.fields.String()
+    rpn = ma.fields.List(ma.fields.Integer(allow_none=True))
+
+
+class ProjectionPointSchema(ma.Schema):
+    """Expected state at a future interval end."""
+
+    at = UTCDateTime()
+    period = ma.fields.String()
+    total_rpn = ma.fields.Integer()
+    needs_action_count = ma.fields.Integer()
+
+
+class ProjectionSchema(ma.Schema):
+    """Where risk heads if people keep their dates."""
+
+    points = ma.fields.List(ma.fields.Nested(ProjectionPointSchema))
+    done_date = ma.fields.Date(allow_none=True, metadata={"description": "First day with no mode needing action"})
+    assumption = ma.fields.String()
+
+
+class StudyHistorySchema(ma.Schema):
+    """A study's risk over time."""
+
+    study_id = ma.fields.Integer()
+    interval = ma.fields.String()
+    timezone = ma.fields.String()
+    points = ma.fields.List(ma.fields.Nested(HistoryPointSchema))
+    modes = ma.fields.List(ma.fields.Nested(ModeSeriesSchema))
+    projection = ma.fields.Nested(ProjectionSchema)
+    caution = ma.fields.String()
+
+
+class PortfolioHistorySchema(ma.Schema):
+    """Risk over time summed across studies."""
+
+    interval = ma.fields.String()
+    timezone = ma.fields.String()
+    study_ids = ma.fields.List(ma.fields.Integer())
+    points = ma.fields.List(ma.fields.Nested(HistoryPointSchema))
+    caution = ma.fields.String()
+
+
+def _mode_ids(value, study):
+    if not value:
+        return ()
+    if value == "all":
+        return None
+    try:
+        ids = [int(part) for part in value.split(",") if part.strip()]
+    except ValueError as error:
+        raise ValidationFailed(
+            "modes must be all or a list of ids", errors=[field_error("modes", "all, or e.g. 3,7,12", "query")]
+        ) from error
+    found = {
+        mode.id
+        for mode in FailureMode.select(FailureMode.id).where(FailureMode.id.in_(ids) & (FailureMode.study == study))
+    }
+    missing = [mode_id for mode_id in ids if mode_id not in found]
+    if missing:
+        raise ValidationFailed(
+            "unknown modes", errors=[field_error("modes", f"not modes of this study: {missing}", "query")]
+        )
+    return ids
+
+
+def study_history(study_id, args):
+    """The whole history document of one study (shared by the JSON and chart views)."""
+    study = get_study(study_id)
+    first = args.get("from_") or history.first_event_day(study)
+    last = args.get("to") or local_today(study.timezone)
+    periods_ = history.periods(first, last, args["interval"], study.timezone)
+    history.check_point_count(periods_)
+    points, lookups = history.history_points(study, periods_)
+    wanted = _mode_ids(args.get("modes"), study)
+    series = []
+    if wanted != ():
+        by_mode = history.mode_series(study, wanted, lookups)
+        names = {mode.id: mode for mode in FailureMode.select().where(FailureMode.id.in_(list(by_mode)))}
+        series = [
+            {
+                "mode_id": mode_id,
+                "item": names[mode_id].item,
+                "failure_mode": names[mode_id].failure_mode,
+                "rpn": values,
+            }
+            for mode_id, values in by_mode.items()
+        ]
+    return {
+        "study_id": study.id,
+        "interval": args["interval"],
+        "timezone": study.timezone,
+        "points": points,
+        "modes": series,
+        "projection": projection(study, args["interval"]),
+        "caution": CAUTION,
+    }
+
+
+@blp.route("/studies/<int:study_id>/history")
+class StudyHistory(MethodView):
+    """A study's risk burn-down."""
+
+    @blp.arguments(HistoryArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(200, StudyHistorySchema)
+    def get(self, args, study_id):
+        """Totals at each interval end in the study's time zone, change by cause, projection."""
+        return study_history(study_id, args)
+
+
+@blp.route("/history")
+class PortfolioHistory(MethodView):
+    """Risk across many studies, for the quality manager's view."""
+
+    @blp.arguments(PortfolioArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(200, PortfolioHistorySchema)
+    def get(self, args):
+        """Totals summed over the studies that match the filters."""
+        check_timezone(args["timezone"])
+        query = studies_query(args.get("status"), args.get("kind"), args.get("tag"), args.get("owner_email"))
+        if args.get("site"):
+            query = query.where(Study.site == args["site"])
+        studies = list(query.order_by(Study.id))
+        first = args.get("from_") or min(
+            (history.first_event_day(study) for study in studies), default=local_today(args["timezone"])
+        )
+        last = args.get("to") or local_today(args["timezone"])
+        periods_ = history.periods(first, last, args["interval"], args["timezone"])
+        history.check_point_count(periods_)
+        return {
+            "interval": args["interval"],
+            "timezone": args["timezone"],
+            "study_ids": [study.id for study in studies],
+            "points": history.portfolio_points(studies, periods_),
+            "caution": CAUTION,
+        }
