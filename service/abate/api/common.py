@@ -50,6 +50,21 @@ class UTCDateTime(ma.fields.DateTime):
         return parsed.astimezone(datetime.UTC).replace(tzinfo=None)
 
 
+class AsOf(ma.fields.Field):
+    """A past moment: YYYY-MM-DD (the end of that day in the study's time zone) or an RFC 3339 timestamp."""
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if isinstance(value, str) and len(value) == 10:
+            try:
+                return datetime.date.fromisoformat(value)
+            except ValueError:
+                pass
+        return UTCDateTime()._deserialize(value, attr, data, **kwargs)
+
+    def _jsonschema_type_mapping(self):
+        return {"type": "string", "description": "YYYY-MM-DD or an RFC 3339 timestamp"}
+
+
 class PageArgsSchema(ma.Schema):
     """Cursor pagination: `limit` items from the position `cursor` names."""
 

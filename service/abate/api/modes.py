@@ -8,6 +8,7 @@ from abate.api.common import (
     IF_MATCH_PARAMETER,
     REQUEST_ACTOR,
     REQUEST_SOURCE,
+    AsOf,
     PageArgsSchema,
     Rating,
     ReasonSchema,
@@ -22,6 +23,7 @@ from abate.domain import modes
 from abate.domain.scoring import PRIORITY_BANDS
 from abate.domain.studies import get_study
 from abate.domain.versions import mode_tag
+from abate.errors import ValidationFailed, field_error
 
 blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes")
 
@@ -90,8 +92,8 @@ class ModeQueryArgsSchema(PageArgsSchema):
     needs_action = ma.fields.Boolean()
     priority = ma.fields.String(validate=ma.validate.OneOf(PRIORITY_BANDS))
     min_rpn = ma.fields.Integer(validate=ma.validate.Range(min=1, max=1000))
+    as_of = AsOf(metadata={"description": "List the modes as they were then (creation order, no other filters)"})
     sort = ma.fields.String(
-        load_default="-rpn",
         validate=ma.validate.OneOf(tuple(modes.MODE_SORTS)),
         metadata={"description": "-rpn (Pareto order, default), rpn or created_at"},
     )
@@ -106,6 +108,20 @@ def _respond(mode, status=200):
     return view, status, headers
 
 
+def _modes_as_of(study_id, args):
+    narrowing = [name for name in ("status", "needs_action", "priority", "min_rpn") if name in args]
+    if narrowing or args.get("sort", "created_at") != "created_at":
+        raise ValidationFailed(
+            "as_of lists every mode of that moment in creation order",
+            errors=[field_error(name, "not combinable with as_of", "query") for name in narrowing or ["sort"]],
+        )
+    study = get_study(study_id)
+    query, lookup = modes.modes_as_of_query(study, args["as_of"])
+    return page_of(
+        query, modes.MODE_SORTS["created_at"], args, lambda rows: modes.mode_views_as_of(rows, study, lookup)
+    )
+
+
 @blp.route("/studies/<int:study_id>/modes")
 class StudyModes(MethodView):
     """A study's failure modes."""
@@ -113,12 +129,15 @@ class StudyModes(MethodView):
     @blp.arguments(ModeQueryArgsSchema, location="query", unknown=ma.RAISE)
     @blp.response(200, list_schema(ModeSchema))
     def get(self, args, study_id):
-        """List a study's modes, highest RPN first unless sort says otherwise."""
+        """List a study's modes, highest RPN first unless sort says otherwise; as_of lists them as they were."""
+        if "as_of" in args:
+            return _modes_as_of(study_id, args)
         query = modes.modes_query(
             study_id, args.get("status"), args.get("needs_action"), args.get("priority"), args.get("min_rpn")
         )
         study = get_study(study_id)
-        return page_of(query, modes.MODE_SORTS[args["sort"]], args, lambda rows: modes.mode_views(rows, study))
+        order = modes.MODE_SORTS[args.get("sort", "-rpn")]
+        return page_of(query, order, args, lambda rows: modes.mode_views(rows, study))
 
     @blp.arguments(ModeSchema)
     @blp.response(201, ModeSchema)

@@ -8,6 +8,7 @@ from abate.api.common import (
     IF_MATCH_PARAMETER,
     REQUEST_ACTOR,
     REQUEST_SOURCE,
+    AsOf,
     Id,
     PageArgsSchema,
     UTCDateTime,
@@ -17,7 +18,7 @@ from abate.api.common import (
     page_of,
 )
 from abate.domain import events as risk_events
-from abate.domain import studies
+from abate.domain import history, studies
 from abate.domain.events import EVENT_KINDS
 from abate.domain.versions import study_tag
 from abate.models import RiskEvent, Study
@@ -78,6 +79,10 @@ class RiskSummarySchema(ma.Schema):
     mode_count = ma.fields.Integer(metadata={"description": "Active modes"})
     retired_count = ma.fields.Integer()
     by_priority = ma.fields.Nested(PriorityCountsSchema)
+    as_of = UTCDateTime(metadata={"description": "The moment an as_of read describes"})
+    change_by_cause = ma.fields.Dict(
+        keys=ma.fields.String(), values=ma.fields.Integer(), metadata={"description": "as_of reads: running change"}
+    )
     pareto = ma.fields.List(
         ma.fields.Nested(ParetoEntrySchema),
         metadata={"description": "Highest-RPN modes first (single-study reads only)"},
@@ -127,6 +132,12 @@ class StudyPatchSchema(StudySchema):
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **{"partial": True, **kwargs})
+
+
+class StudyReadArgsSchema(ma.Schema):
+    """Options of a single-study read."""
+
+    as_of = AsOf(metadata={"description": "Risk at a past moment: a date (end of that local day) or a timestamp"})
 
 
 class StudyQueryArgsSchema(PageArgsSchema):
@@ -212,10 +223,16 @@ class Studies(MethodView):
 class StudyById(MethodView):
     """One study."""
 
+    @blp.arguments(StudyReadArgsSchema, location="query", unknown=ma.RAISE)
     @blp.response(200, StudySchema)
-    def get(self, study_id):
-        """Read a study with its risk summary and Pareto ranking."""
-        return _respond(studies.get_study(study_id))
+    def get(self, args, study_id):
+        """Read a study with its risk summary and Pareto ranking, or its risk at a past moment (as_of)."""
+        study = studies.get_study(study_id)
+        if "as_of" not in args:
+            return _respond(study)
+        view = studies.study_views([study])[0]
+        view["risk"] = {**history.study_risk_as_of(study, args["as_of"]), "caution": studies.CAUTION}
+        return view
 
     @blp.arguments(StudyPatchSchema)
     @blp.response(200, StudySchema)

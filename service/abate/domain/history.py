@@ -239,6 +239,12 @@ def ratings_as_of(mode_ids, lookup):
     return found
 
 
+def study_risk_as_of(study, value):
+    """The study's risk figures at a past moment (a date means the end of that local day)."""
+    lookup = as_of_lookup(value, study.timezone)
+    return {**risk_as_of(study, lookup), "as_of": lookup - _TICK}
+
+
 def as_of_lookup(value, timezone_name):
     """The instant an as_of query names: a date means the end of that local day."""
     if isinstance(value, datetime.datetime):

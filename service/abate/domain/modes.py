@@ -3,6 +3,7 @@
 from abate.db import database
 from abate.domain import events as risk_events
 from abate.domain.clock import utcnow
+from abate.domain.history import as_of_lookup, ratings_as_of
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings, assess, projected_ratings
 from abate.domain.studies import get_study, policy_of, require_open_for_changes
@@ -149,6 +150,12 @@ def retire_mode(mode_id, reason, *, actor, source, expected_tags=None):
     return mode
 
 
+def modes_as_of_query(study, value):
+    """The study's modes that existed at a past moment, and the lookup instant for their ratings."""
+    lookup = as_of_lookup(value, study.timezone)
+    return FailureMode.select().where((FailureMode.study == study) & (FailureMode.created_at < lookup)), lookup
+
+
 def modes_query(study_id, status=None, needs_action=None, priority=None, min_rpn=None):
     """A study's modes matching the filters, for pagination by the caller."""
     study = get_study(study_id)
@@ -213,6 +220,29 @@ def mode_views(modes, study=None):
                 "retired_at": mode.retired_at,
             }
         )
+    return views
+
+
+def mode_views_as_of(modes, study, lookup):
+    """The modes as they stood just before lookup, scored by the study's current policy."""
+    modes = list(modes)
+    past = ratings_as_of([mode.id for mode in modes], lookup)
+    views = []
+    for mode, view in zip(modes, mode_views(modes, study), strict=True):
+        kind, *values = past[mode.id]
+        then = Ratings(*values)
+        assessment = assess(then, policy_of(study))
+        view.update(
+            then.as_dict(),
+            criticality=then.criticality,
+            needs_action=assessment.needs_action,
+            needs_action_reasons=list(assessment.reasons),
+            priority=assessment.priority,
+            status="retired" if kind == "retired" else "active",
+            projected=None,
+            open_actions=None,
+        )
+        views.append(view)
     return views
 
 
