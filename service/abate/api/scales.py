@@ -42,9 +42,7 @@ class ScaleSetSchema(ma.Schema):
     default_action_threshold = ma.fields.Integer(
         strict=True,
         validate=ma.validate.Range(min=1, max=1000),
-        metadata={
-            "description": "RPN at or above which a mode needs action, for new studies (default: a tenth of the largest RPN)"
-        },
+        metadata={"description": "New studies act at or above this RPN (default: a tenth of the largest RPN)"},
     )
     default_severity_threshold = ma.fields.Integer(
         strict=True,

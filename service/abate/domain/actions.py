@@ -9,7 +9,7 @@ from abate.domain.modes import apply_ratings, locked_active_mode, ratings_of
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings
 from abate.domain.studies import get_study, require_open_for_changes
-from abate.domain.versions import action_tag, check_precondition
+from abate.domain.versions import action_tag, check_precondition, save_new_version
 from abate.errors import Conflict, InvalidTransition, NotFound
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, RiskEvent, Study
 
@@ -122,9 +122,7 @@ def update_action(action_id, changes, *, actor, source, expected_tags=None):
             action.due_date = changes["due_date"]
             action.due_date_changes += 1
         action.status = changes.get("status", action.status)
-        action.version += 1
-        action.updated_at = utcnow()
-        action.save()
+        save_new_version(action)
         if (action.due_date, action.status) != tracked_before:
             reason = changes.get("reason", "") or _describe_change(tracked_before, action)
             risk_events.record_event(
@@ -157,18 +155,14 @@ def close_action(action_id, data, *, actor, source, expected_tags=None):
         after = Ratings(**{name: result.get(name, getattr(before, name)) for name in RATING_DIMENSIONS})
         raised = any(getattr(after, name) > getattr(before, name) for name in RATING_DIMENSIONS)
         apply_ratings(mode, after)
-        mode.version += 1
-        mode.updated_at = occurred_at
-        mode.save()
+        save_new_version(mode, occurred_at)
         for name in RATING_DIMENSIONS:
             setattr(action, f"result_{name}", getattr(after, name))
         action.status = "closed"
         action.evidence = data["evidence"]
         action.verified_by = data.get("verified_by", "")
         action.closed_at = occurred_at
-        action.version += 1
-        action.updated_at = utcnow()
-        action.save()
+        save_new_version(action)
         risk_events.record_event(
             study,
             "action_closed",
@@ -212,15 +206,11 @@ def reopen_action(action_id, reason, *, actor, source, expected_tags=None):
         }
         after = Ratings(**restored)
         apply_ratings(mode, after)
-        mode.version += 1
-        mode.updated_at = utcnow()
-        mode.save()
+        save_new_version(mode)
         for name in RATING_DIMENSIONS:
             setattr(action, f"result_{name}", None)
         action.status, action.closed_at, action.evidence, action.verified_by = "open", None, "", ""
-        action.version += 1
-        action.updated_at = utcnow()
-        action.save()
+        save_new_version(action)
         risk_events.record_event(
             study,
             "action_reopened",
@@ -242,9 +232,8 @@ def cancel_action(action_id, reason, *, actor, source, expected_tags=None):
         check_precondition(action_tag(action, study), expected_tags)
         _require_status(action, UNFINISHED, "cancelled")
         action.status = "cancelled"
-        action.cancelled_at = action.updated_at = utcnow()
-        action.version += 1
-        action.save()
+        action.cancelled_at = utcnow()
+        save_new_version(action, action.cancelled_at)
         risk_events.record_event(
             study, "action_cancelled", mode=action.mode, action=action, actor=actor, source=source, reason=reason
         )

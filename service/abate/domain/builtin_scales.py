@@ -10,7 +10,10 @@
 BUILTIN_SCALE_SETS = [
     {
         "name": "General 1-10",
-        "description": "A ten-step scale for detailed process or design studies where fine distinctions between ratings are useful.",
+        "description": (
+            "A ten-step scale for detailed process or design studies where fine distinctions between ratings "
+            "are useful."
+        ),
         "default_action_threshold": 100,
         "default_severity_threshold": 9,
         "severity": [
@@ -49,7 +52,10 @@ BUILTIN_SCALE_SETS = [
             (
                 9,
                 "Rule breach, signalled",
-                "Breaks a safety or legal requirement, or puts a person at risk, but gives a clear sign before it happens.",
+                (
+                    "Breaks a safety or legal requirement, or puts a person at risk, but gives a clear sign "
+                    "before it happens."
+                ),
             ),
             (
                 10,

@@ -7,7 +7,7 @@ from abate.domain.history import as_of_lookup, ratings_as_of
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings, assess, projected_ratings
 from abate.domain.studies import get_study, policy_of, require_open_for_changes
-from abate.domain.versions import check_precondition, mode_tag
+from abate.domain.versions import check_precondition, mode_tag, save_new_version
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode
 
@@ -113,9 +113,7 @@ def update_mode(mode_id, changes, *, actor, source, expected_tags=None):
             if name in changes:
                 setattr(mode, name, changes[name])
         apply_ratings(mode, after)
-        mode.version += 1
-        mode.updated_at = utcnow()
-        mode.save()
+        save_new_version(mode)
         if after != before:
             risk_events.record_event(
                 study,
@@ -141,9 +139,8 @@ def retire_mode(mode_id, reason, *, actor, source, expected_tags=None):
                 f"failure mode {mode_id} has open corrective actions; close or cancel them before retiring it"
             )
         mode.status = "retired"
-        mode.retired_at = mode.updated_at = utcnow()
-        mode.version += 1
-        mode.save()
+        mode.retired_at = utcnow()
+        save_new_version(mode, mode.retired_at)
         risk_events.record_event(
             study, "retired", mode=mode, before=ratings_of(mode), actor=actor, source=source, reason=reason
         )

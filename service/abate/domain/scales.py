@@ -2,8 +2,7 @@
 
 from abate.db import database
 from abate.domain import scoring
-from abate.domain.clock import utcnow
-from abate.domain.versions import check_precondition, scale_set_tag
+from abate.domain.versions import check_precondition, save_new_version, scale_set_tag
 from abate.errors import NotFound, RatingOutOfScale, ScaleInUse, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, ScaleLevel, ScaleSet, Study
 
@@ -107,9 +106,7 @@ def replace_scale_set(scale_id, data, expected_tags=None):
             )
         levels = _apply(scale_set, data)
         _ensure_unique_name(scale_set.name, own_id=scale_set.id)
-        scale_set.version += 1
-        scale_set.updated_at = utcnow()
-        scale_set.save()
+        save_new_version(scale_set)
         ScaleLevel.delete().where(ScaleLevel.scale_set == scale_set).execute()
         for level in levels:
             level.scale_set = scale_set

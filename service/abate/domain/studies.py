@@ -6,10 +6,10 @@ import peewee as pw
 
 from abate.db import database
 from abate.domain import events as risk_events
-from abate.domain.clock import local_today, utcnow
+from abate.domain.clock import local_today
 from abate.domain.scales import get_scale_set
 from abate.domain.scoring import Ratings, RiskPolicy, assess, projected_ratings
-from abate.domain.versions import check_precondition, study_tag
+from abate.domain.versions import check_precondition, save_new_version, study_tag
 from abate.errors import Conflict, InvalidTransition, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode, Study, StudyTag
 
@@ -125,9 +125,7 @@ def update_study(study_id, changes, *, actor, source, expected_tags=None):
         _check_policy(study, study.scale_set)
         if "tags" in changes:
             _set_tags(study, changes["tags"])
-        study.version += 1
-        study.updated_at = utcnow()
-        study.save()
+        save_new_version(study)
         if policy_of(study) != old_policy:
             reason = (
                 f"risk policy changed from RPN >= {old_policy.action_threshold} or S >= "

@@ -1,6 +1,6 @@
 """Entity tags and optimistic concurrency: a write names the representation it was based on."""
 
-from abate.domain.clock import local_today
+from abate.domain.clock import local_today, utcnow
 from abate.errors import PreconditionFailed
 
 
@@ -22,6 +22,13 @@ def mode_tag(mode, study):
 def action_tag(action, study):
     """Whether an action is overdue changes with the date in its study's time zone."""
     return f"{action.version}.{local_today(study.timezone).toordinal()}"
+
+
+def save_new_version(row, at=None):
+    """Save a changed row as its next version, stamped at (default now)."""
+    row.version += 1
+    row.updated_at = at or utcnow()
+    row.save()
 
 
 def check_precondition(current_tag, expected_tags):
