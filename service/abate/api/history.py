@@ -1,11 +1,12 @@
 """/v1/studies/{id}/history and /v1/history: how risk fell over time, and where it is heading."""
 
 import marshmallow as ma
+from flask import Response
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
 from abate.api.common import UTCDateTime
-from abate.domain import history
+from abate.domain import charts, history
 from abate.domain.clock import local_today
 from abate.domain.projection import projection
 from abate.domain.studies import CAUTION, check_timezone, get_study, studies_query
@@ -210,3 +211,45 @@ class PortfolioHistory(MethodView):
             "points": history.portfolio_points(studies, periods_),
             "caution": CAUTION,
         }
+
+
+def chart_response(study_id, args, image_format):
+    """The burn-down chart of a study's history over the requested range, as an image response."""
+    document = study_history(study_id, args)
+    closures = charts.closure_instants(document, args.get("from_"))
+    image = charts.burn_down_chart(document, get_study(study_id).title, closures, image_format)
+    return Response(image, mimetype=charts.MEDIA_TYPES[image_format])
+
+
+@blp.route("/studies/<int:study_id>/history.svg")
+class StudyHistorySvg(MethodView):
+    """A study's risk burn-down as an SVG chart."""
+
+    @blp.arguments(RangeArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(
+        200,
+        {"type": "string", "contentMediaType": "image/svg+xml"},
+        content_type="image/svg+xml",
+        description="Total RPN, its projection, modes needing action and action closures (SVG 1.1)",
+    )
+    @blp.alt_response(404, description="No study with this id")
+    def get(self, args, study_id):
+        """The risk burn-down as an SVG image, the same bytes for the same history."""
+        return chart_response(study_id, args, "svg")
+
+
+@blp.route("/studies/<int:study_id>/history.png")
+class StudyHistoryPng(MethodView):
+    """A study's risk burn-down as a PNG chart."""
+
+    @blp.arguments(RangeArgsSchema, location="query", unknown=ma.RAISE)
+    @blp.response(
+        200,
+        {"type": "string", "contentMediaType": "image/png"},
+        content_type="image/png",
+        description=f"The burn-down at {charts.WIDTH_PX} x {charts.HEIGHT_PX} pixels",
+    )
+    @blp.alt_response(404, description="No study with this id")
+    def get(self, args, study_id):
+        """The risk burn-down as a PNG image, for pasting into a report."""
+        return chart_response(study_id, args, "png")
