@@ -92,9 +92,46 @@ def close_pool():
 
 
 @pytest.fixture
-def client(app):
-    """Flask's test client on the app."""
+def make_token(app):
+    """Create an API token of a role; return its secret."""
+    from abate.domain.tokens import create_token
+
+    def make(role="admin", name=None):
+        with db.database.connection_context():
+            return create_token(name or f"test {role}", role)[1]
+
+    return make
+
+
+@pytest.fixture
+def admin_token(make_token):
+    """The secret of an admin token."""
+    return make_token("admin")
+
+
+def authorised_client(app, secret):
+    """Flask's test client sending Authorization: Bearer secret on every request."""
+    test_client = app.test_client()
+    test_client.environ_base["HTTP_AUTHORIZATION"] = f"Bearer {secret}"
+    return test_client
+
+
+@pytest.fixture
+def client(app, admin_token):
+    """Flask's test client on the app, with an admin token."""
+    return authorised_client(app, admin_token)
+
+
+@pytest.fixture
+def anonymous_client(app):
+    """Flask's test client without any token."""
     return app.test_client()
+
+
+@pytest.fixture
+def auth_headers(admin_token):
+    """Headers for raw HTTP calls to live_server."""
+    return {"Authorization": f"Bearer {admin_token}"}
 
 
 @pytest.fixture

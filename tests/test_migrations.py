@@ -3,7 +3,8 @@
 import pytest
 
 from abate import db
-from conftest import HEAD_SCHEMA_VERSION, build_app
+from abate.domain.tokens import create_token
+from conftest import HEAD_SCHEMA_VERSION, authorised_client, build_app
 
 OLD_ROWS = {
     "study": (
@@ -66,7 +67,8 @@ def test_upgrading_a_version_1_database_keeps_every_row_and_backfills_rpn(versio
         assert _counts(db.database) == before
         rpns = [row[0] for row in db.database.execute_sql("SELECT rpn FROM failure_mode ORDER BY id")]
     assert rpns == [280, 60]
-    client = app.test_client()
+    with db.database.connection_context():
+        client = authorised_client(app, create_token("upgrade check", "admin")[1])
     modes = client.get("/v1/studies/1/modes").get_json()["items"]
     assert [(mode["failure_mode"], mode["rpn"]) for mode in modes] == [("Crack", 280), ("Burr", 60)]
     # The upgraded study keeps working: a new mode lands on top of the old running total.

@@ -36,4 +36,6 @@ def test_errors_are_documented_as_problem_details(app):
     for response in responses.values():
         assert list(response["content"]) == ["application/problem+json"]
         assert response["content"]["application/problem+json"]["schema"] == {"$ref": "#/components/schemas/Problem"}
-    assert {"type", "title", "status", "detail", "instance"} <= set(document["components"]["schemas"]["Problem"]["properties"])
+    assert {"type", "title", "status", "detail", "instance"} <= set(
+        document["components"]["schemas"]["Problem"]["properties"]
+    )

@@ -10,6 +10,7 @@ class AbateError(Exception):
 
     status = 400
     slug = "bad-request"
+    headers = {}
 
     def __init__(self, detail, errors=None, **extra):
         super().__init__(detail)

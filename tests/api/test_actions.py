@@ -457,7 +457,7 @@ def test_the_effect_view_ranks_closed_actions_by_risk_removed_against_their_plan
     assert "does not certify" in body["caution"]
 
 
-def test_of_eight_concurrent_closes_of_one_action_exactly_one_succeeds(client, live_server):
+def test_of_eight_concurrent_closes_of_one_action_exactly_one_succeeds(client, live_server, auth_headers):
     study, mode, action = _weld_mode_with_action(client)
     make_mode(client, study["id"], 5, 5, 5)  # a second mode, so the total is a real sum
     url = f"{live_server}/v1/actions/{action['id']}/close"
@@ -466,7 +466,9 @@ def test_of_eight_concurrent_closes_of_one_action_exactly_one_succeeds(client, l
 
     def closer(occurrence):
         barrier.wait()
-        answer = requests.post(url, json={"result": {"occurrence": occurrence}, "evidence": "race"}, timeout=30)
+        answer = requests.post(
+            url, json={"result": {"occurrence": occurrence}, "evidence": "race"}, headers=auth_headers, timeout=30
+        )
         outcomes.append((answer.status_code, occurrence, answer.json()))
 
     threads = [threading.Thread(target=closer, args=(value,)) for value in (1, 2, 3, 4, 5, 6, 7, 9)]

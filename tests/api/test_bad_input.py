@@ -6,7 +6,16 @@ from typing import NamedTuple
 import pytest
 import requests
 
-from conftest import BUILTIN_1_5, BUILTIN_1_10, close_pool, build_app, make_mode, make_study, scale_id_named
+from conftest import (
+    BUILTIN_1_5,
+    BUILTIN_1_10,
+    authorised_client,
+    build_app,
+    close_pool,
+    make_mode,
+    make_study,
+    scale_id_named,
+)
 
 UNKNOWN_ID = 999_999
 # Larger than any 64-bit integer column can hold.
@@ -111,8 +120,13 @@ def compact_study(client):
 @pytest.fixture
 def small_body_client(database_url, tmp_path):
     """A client of an app configured to accept request bodies of at most 1024 bytes."""
+    from abate import db
+    from abate.domain.tokens import create_token
+
     application = build_app(database_url, tmp_path, MAX_BODY_BYTES=1024)
-    yield application.test_client()
+    with db.database.connection_context():
+        secret = create_token("small bodies", "admin")[1]
+    yield authorised_client(application, secret)
     close_pool()
 
 
@@ -399,7 +413,7 @@ def test_body_over_the_configured_max_body_bytes_is_413_and_creates_nothing(smal
     assert len(all_studies(client)["items"]) == len(before["items"]) + 1
 
 
-def test_chunked_body_over_the_default_mebibyte_is_413_over_real_http(live_server, client):
+def test_chunked_body_over_the_default_mebibyte_is_413_over_real_http(live_server, client, auth_headers):
     """Without a Content-Length the limit still holds: waitress de-chunks, the app counts."""
     before = all_studies(client)
     payload = padded_study_body(client, 1_048_576 + 1)
@@ -410,7 +424,10 @@ def test_chunked_body_over_the_default_mebibyte_is_413_over_real_http(live_serve
 
     with requests.Session() as session:
         response = session.post(
-            f"{live_server}/v1/studies", data=chunks(), headers={"Content-Type": "application/json"}, timeout=30
+            f"{live_server}/v1/studies",
+            data=chunks(),
+            headers={"Content-Type": "application/json", **auth_headers},
+            timeout=30,
         )
     assert response.request.headers["Transfer-Encoding"] == "chunked"
     assert response.status_code == 413

@@ -27,4 +27,3 @@ def build_unmigrated_app(url, tmp_path):
     from abate import create_app
 
     return create_app({"DATABASE_URL": url, "INSTANCE_PATH": str(tmp_path), "DB_POOL_TIMEOUT": 1})
-

@@ -147,11 +147,18 @@ def test_a_mode_etag_changes_when_the_study_policy_changes(client):
     assert (before.get_json()["needs_action"], after.get_json()["needs_action"]) == (False, True)
 
 
-def test_concurrent_patches_with_if_match_lose_no_update(live_server):
+def test_concurrent_patches_with_if_match_lose_no_update(live_server, auth_headers):
     session = requests.Session()
+    session.headers.update(auth_headers)
     study = session.post(
         f"{live_server}/v1/studies",
-        json={"title": "Race", "kind": "design", "owner": {"name": "R", "email": "r@example.com"}, "scale_id": 1, "timezone": "UTC"},
+        json={
+            "title": "Race",
+            "kind": "design",
+            "owner": {"name": "R", "email": "r@example.com"},
+            "scale_id": 1,
+            "timezone": "UTC",
+        },
         timeout=10,
     ).json()
     mode_url = None
@@ -168,7 +175,10 @@ def test_concurrent_patches_with_if_match_lose_no_update(live_server):
     def writer(occurrence):
         barrier.wait()
         answer = requests.patch(
-            mode_url, json={"occurrence": occurrence, "reason": f"writer {occurrence}"}, headers={"If-Match": etag}, timeout=30
+            mode_url,
+            json={"occurrence": occurrence, "reason": f"writer {occurrence}"},
+            headers={"If-Match": etag, **auth_headers},
+            timeout=30,
         )
         outcomes.append((answer.status_code, occurrence))
 

@@ -4,7 +4,10 @@ from conftest import BUILTIN_1_5, BUILTIN_1_10, make_study, scale_id_named
 
 
 def _levels(count, word):
-    return [{"value": value, "label": f"{word} {value}", "criteria": f"{word} criteria {value}"} for value in range(1, count + 1)]
+    return [
+        {"value": value, "label": f"{word} {value}", "criteria": f"{word} criteria {value}"}
+        for value in range(1, count + 1)
+    ]
 
 
 def custom_scale(name="Plant 1-6", severity=6, occurrence=6, detection=6, **extra):

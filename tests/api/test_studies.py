@@ -128,7 +128,9 @@ def test_a_study_etag_from_before_a_risk_event_no_longer_matches(client):
     study = make_study(client)
     etag_before_modes = client.get(f"/v1/studies/{study['id']}").headers["ETag"]
     make_mode(client, study["id"])
-    stale = client.patch(f"/v1/studies/{study['id']}", json={"title": "Renamed"}, headers={"If-Match": etag_before_modes})
+    stale = client.patch(
+        f"/v1/studies/{study['id']}", json={"title": "Renamed"}, headers={"If-Match": etag_before_modes}
+    )
     assert stale.status_code == 412
     current = client.get(f"/v1/studies/{study['id']}").headers["ETag"]
     response = client.patch(f"/v1/studies/{study['id']}", json={"title": "Renamed"}, headers={"If-Match": current})

@@ -17,6 +17,7 @@ from abate_client import (
     PreconditionFailed,
     Ratings,
     TransportError,
+    Unauthorized,
     ValidationFailed,
 )
 from conftest import BUILTIN_1_5, BUILTIN_1_10
@@ -25,9 +26,9 @@ CLIENT_DIR = Path(__file__).resolve().parents[2] / "clients" / "python"
 
 
 @pytest.fixture
-def api(live_server):
-    """A client of the live server."""
-    with Client(live_server) as client:
+def api(live_server, admin_token):
+    """A client of the live server with an admin token."""
+    with Client(live_server, token=admin_token) as client:
         yield client
 
 
@@ -93,8 +94,8 @@ def test_mode_list_is_in_pareto_order_highest_rpn_first(api):
     assert [mode.rpn for mode in api.modes.list(study.id, needs_action=False)] == []
 
 
-def test_mode_list_fetches_each_page_only_when_iteration_reaches_it(live_server, recording_session):
-    with Client(live_server, session=recording_session) as api:
+def test_mode_list_fetches_each_page_only_when_iteration_reaches_it(live_server, admin_token, recording_session):
+    with Client(live_server, token=admin_token, session=recording_session) as api:
         study = new_study(api)
         for severity in range(1, 8):
             new_mode(api, study, severity, 4, 3)
@@ -217,18 +218,18 @@ def test_missing_resources_are_not_found(api):
 
 def test_models_ignore_keys_a_newer_server_adds(api, live_server):
     mode = new_mode(api, new_study(api), 4, 5, 5)
-    response = requests.get(f"{live_server}/v1/modes/{mode.id}", timeout=10)
+    response = api.request("GET", f"/v1/modes/{mode.id}")
     body = {**response.json(), "escalation_level": 2}
     assert Mode.from_json(body, etag=response.headers["ETag"]) == api.modes.get(mode.id)
 
 
-def test_the_token_goes_out_as_a_bearer_header(live_server, recording_session):
-    with Client(live_server, token="abt_example", session=recording_session) as api:
+def test_the_token_goes_out_as_a_bearer_header(live_server, admin_token, recording_session):
+    with Client(live_server, token=admin_token, session=recording_session) as api:
         assert [scale_set.name for scale_set in api.scales.list()][:2] == [BUILTIN_1_10, BUILTIN_1_5]
-    with Client(live_server, session=recording_session) as api:
+    with Client(live_server, session=recording_session) as api, pytest.raises(Unauthorized):
         list(api.scales.list())
     with_token, without_token = recording_session.sent
-    assert with_token.headers["Authorization"] == "Bearer abt_example"
+    assert with_token.headers["Authorization"] == f"Bearer {admin_token}"
     assert "Authorization" not in without_token.headers
 
 

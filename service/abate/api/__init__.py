@@ -81,7 +81,7 @@ def problem_response(body, status, headers=()):
 
 
 def _domain_problem(error):
-    return problem_response(error.problem(request.path), error.status)
+    return problem_response(error.problem(request.path), error.status, error.headers)
 
 
 def _database_unavailable(error):
@@ -119,7 +119,8 @@ def _require_json_body():
 
 def init_app(app):
     """Create the Api for app, register every resource's blueprint and the request checks."""
-    from abate.api import actions, health, history, modes, scales, studies
+    from abate.api import actions, health, history, modes, scales, studies, tokens
+    from abate.api.auth import require_token
 
     app.config.update(
         API_TITLE=API_TITLE,
@@ -142,7 +143,8 @@ def init_app(app):
     api.register_converter(
         BoundedIntegerConverter, lambda converter: {"type": "integer", "minimum": 0, "maximum": MAX_ID}
     )
-    for module in (health, scales, studies, modes, actions, history):
+    for module in (health, scales, studies, modes, actions, history, tokens):
         api.register_blueprint(module.blp)
+    app.before_request(require_token)
     app.before_request(_require_json_body)
     return api

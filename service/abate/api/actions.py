@@ -4,9 +4,9 @@ import marshmallow as ma
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
+from abate.api.auth import current_actor
 from abate.api.common import (
     IF_MATCH_PARAMETER,
-    REQUEST_ACTOR,
     REQUEST_SOURCE,
     Id,
     PageArgsSchema,
@@ -180,7 +180,7 @@ class ModeActions(MethodView):
     @blp.alt_response(409, description="The mode is retired, its study archived, or the external reference taken")
     def post(self, data, mode_id):
         """Open a corrective action on a mode."""
-        return _respond(actions.create_action(mode_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE), 201)
+        return _respond(actions.create_action(mode_id, data, actor=current_actor(), source=REQUEST_SOURCE), 201)
 
 
 @blp.route("/actions")
@@ -212,7 +212,7 @@ class ActionById(MethodView):
     def patch(self, changes, action_id):
         """Change an unfinished action: owner, due date (counted), status open/in_progress, target."""
         action = actions.update_action(
-            action_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            action_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 
@@ -228,7 +228,7 @@ class ActionClosure(MethodView):
     def post(self, data, action_id):
         """Close: the action closes and its mode is re-rated to the result, in one transaction."""
         action = actions.close_action(
-            action_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            action_id, data, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 
@@ -244,7 +244,7 @@ class ActionReopening(MethodView):
     def post(self, data, action_id):
         """Reopen: the ratings the closure changed go back to their values before it."""
         action = actions.reopen_action(
-            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            action_id, data["reason"], actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 
@@ -260,7 +260,7 @@ class ActionCancellation(MethodView):
     def post(self, data, action_id):
         """Cancel: the action is dropped and the ratings stay."""
         action = actions.cancel_action(
-            action_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            action_id, data["reason"], actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(action)
 

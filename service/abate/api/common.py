@@ -13,7 +13,6 @@ from abate.domain.pagination import paginate
 MAX_ID = 2**63 - 1
 DEFAULT_PAGE_SIZE = 50
 MAX_PAGE_SIZE = 500
-REQUEST_ACTOR = "anonymous"
 REQUEST_SOURCE = "api"
 
 

@@ -4,9 +4,9 @@ import marshmallow as ma
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
+from abate.api.auth import current_actor
 from abate.api.common import (
     IF_MATCH_PARAMETER,
-    REQUEST_ACTOR,
     REQUEST_SOURCE,
     AsOf,
     PageArgsSchema,
@@ -144,7 +144,7 @@ class StudyModes(MethodView):
     @blp.alt_response(409, description="The study is archived")
     def post(self, data, study_id):
         """Add a failure mode; its ratings must lie on the study's scale."""
-        return _respond(modes.create_mode(study_id, data, actor=REQUEST_ACTOR, source=REQUEST_SOURCE), 201)
+        return _respond(modes.create_mode(study_id, data, actor=current_actor(), source=REQUEST_SOURCE), 201)
 
 
 @blp.route("/modes/<int:mode_id>")
@@ -164,7 +164,7 @@ class ModeById(MethodView):
     def patch(self, changes, mode_id):
         """Change a mode's text, or re-rate it with a reason (appends a risk event)."""
         mode = modes.update_mode(
-            mode_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            mode_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(mode)
 
@@ -180,6 +180,6 @@ class ModeRetirement(MethodView):
     def post(self, data, mode_id):
         """Retire a mode (a retirement event, not a risk reduction)."""
         mode = modes.retire_mode(
-            mode_id, data["reason"], actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            mode_id, data["reason"], actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(mode)

@@ -4,9 +4,9 @@ import marshmallow as ma
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
+from abate.api.auth import current_actor
 from abate.api.common import (
     IF_MATCH_PARAMETER,
-    REQUEST_ACTOR,
     REQUEST_SOURCE,
     AsOf,
     Id,
@@ -241,7 +241,7 @@ class StudyById(MethodView):
     def patch(self, changes, study_id):
         """Change a study; If-Match must name its current ETag, which moves with every risk event."""
         study = studies.update_study(
-            study_id, changes, actor=REQUEST_ACTOR, source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            study_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
         return _respond(study)
 

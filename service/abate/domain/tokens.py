@@ -1,13 +1,17 @@
-"""API tokens: random secrets shown once, kept only as SHA-256 hashes."""
+"""API tokens: random secrets shown once, kept only as SHA-256 hashes, with roles and a last-used time."""
 
+import datetime
 import hashlib
 import secrets
 
-from abate.errors import ValidationFailed, field_error
+from abate.domain.clock import utcnow
+from abate.errors import Conflict, NotFound, ValidationFailed, field_error
 from abate.models import ApiToken
 
 ROLES = ("reader", "editor", "admin")
 SECRET_PREFIX = "abt_"
+# last_used_at is written at most this often per token, so reads do not all turn into writes.
+LAST_USED_RESOLUTION = datetime.timedelta(minutes=1)
 
 
 def hash_secret(secret):
@@ -24,3 +28,50 @@ def create_token(name, role):
     secret = SECRET_PREFIX + secrets.token_urlsafe(32)
     row = ApiToken.create(name=name.strip(), role=role, secret_hash=hash_secret(secret))
     return row, secret
+
+
+def authenticate(secret, now=None):
+    """The live token with this secret, its last use noted; None for an unknown or revoked one."""
+    token = ApiToken.get_or_none((ApiToken.secret_hash == hash_secret(secret)) & ApiToken.revoked_at.is_null())
+    if token is None:
+        return None
+    now = now or utcnow()
+    if token.last_used_at is None or now - token.last_used_at >= LAST_USED_RESOLUTION:
+        ApiToken.update(last_used_at=now).where(ApiToken.id == token.id).execute()
+        token.last_used_at = now
+    return token
+
+
+def get_token(token_id):
+    """Return the token with this id or raise NotFound."""
+    token = ApiToken.get_or_none(ApiToken.id == token_id)
+    if token is None:
+        raise NotFound(f"token {token_id} does not exist")
+    return token
+
+
+def revoke_token(token_id):
+    """Revoke a token for good; revoking it twice is a Conflict."""
+    token = get_token(token_id)
+    if token.revoked_at is not None:
+        raise Conflict(f"token {token_id} is already revoked")
+    token.revoked_at = utcnow()
+    token.save()
+    return token
+
+
+def tokens_query():
+    """Every token, for pagination by the caller."""
+    return ApiToken.select()
+
+
+def token_view(token):
+    """A token as plain data; never its secret or hash."""
+    return {
+        "id": token.id,
+        "name": token.name,
+        "role": token.role,
+        "created_at": token.created_at,
+        "last_used_at": token.last_used_at,
+        "revoked_at": token.revoked_at,
+    }
