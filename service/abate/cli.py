@@ -82,6 +82,36 @@ def token_create(app, name, role):
     click.echo(secret)
 
 
+@token_group.command("list")
+@click.pass_obj
+def token_list(app):
+    """List tokens: id, role, name, last use, revocation."""
+    from abate.domain.tokens import tokens_query, token_view
+    from abate.models import ApiToken
+
+    with _connected(app):
+        for token in map(token_view, tokens_query().order_by(ApiToken.id)):
+            used = token["last_used_at"].isoformat(timespec="seconds") + "Z" if token["last_used_at"] else "never"
+            revoked = f"  revoked {token['revoked_at'].isoformat(timespec='seconds')}Z" if token["revoked_at"] else ""
+            click.echo(f"{token['id']:>4}  {token['role']:<6}  {token['name']}  (last used {used}){revoked}")
+
+
+@token_group.command("revoke")
+@click.argument("token_id", type=int)
+@click.pass_obj
+def token_revoke(app, token_id):
+    """Revoke a token; requests with it are refused from now on."""
+    from abate.domain.tokens import revoke_token
+    from abate.errors import AbateError
+
+    with _connected(app):
+        try:
+            token = revoke_token(token_id)
+        except AbateError as error:
+            raise click.ClickException(error.detail) from error
+    click.echo(f"token {token.id} ({token.name!r}) revoked")
+
+
 @main.group("demo")
 def demo_group():
     """The invented demo scenario."""

@@ -101,3 +101,14 @@ def test_serve_migrates_and_answers_through_waitress(tmp_path):
 def test_openapi_command_prints_the_checked_in_document(tmp_path):
     printed = run_abate(tmp_path, "openapi").stdout
     assert printed == (ROOT / "openapi" / "abate-v1.json").read_text(encoding="utf-8")
+
+
+def test_token_list_shows_roles_and_revoke_marks_a_token_revoked(tmp_path):
+    run_abate(tmp_path, "db", "upgrade")
+    secret = run_abate(tmp_path, "token", "create", "--name", "dashboard", "--role", "reader").stdout.split()[-1]
+    listed = run_abate(tmp_path, "token", "list").stdout
+    assert "reader" in listed and "dashboard" in listed and "never" in listed and secret not in listed
+    assert "revoked" in run_abate(tmp_path, "token", "revoke", "1").stdout
+    assert "revoked 20" in run_abate(tmp_path, "token", "list").stdout
+    again = run_abate(tmp_path, "token", "revoke", "1", check=False)
+    assert again.returncode == 1 and "already revoked" in again.stderr
