@@ -19,13 +19,21 @@ $(VENV)/.installed: $(BIN)/python pyproject.toml clients/python/pyproject.toml
 
 install: $(VENV)/.installed
 
+# On a fresh database the demo's studies are 1 (process FMEA), 2 (design FMEA) and 3 (quick 1-5 study).
 demo: install
 	$(BIN)/abate db upgrade
 	$(BIN)/abate demo load
+	$(BIN)/abate remind --now
 	@token=$$($(BIN)/abate token create --name "demo admin" --role admin | tail -n 1); \
-	echo; echo "Abate demo: http://$(HOST):$(PORT)/v1/studies"; \
+	base="http://$(HOST):$(PORT)"; auth="Authorization: Bearer $$token"; \
+	echo; echo "Abate demo: $$base/v1/studies  (1 process FMEA, 2 design FMEA, 3 quick 1-5 study)"; \
 	echo "API token (admin, shown once): $$token"; \
-	echo "Try: curl -H \"Authorization: Bearer $$token\" http://$(HOST):$(PORT)/v1/studies"; echo
+	echo "Ranking, highest RPN first: curl -H \"$$auth\" \"$$base/v1/studies/1/modes?sort=-rpn&limit=10\""; \
+	echo "Risk history, weekly:       curl -H \"$$auth\" \"$$base/v1/studies/1/history?interval=week\""; \
+	echo "Overdue actions:            curl -H \"$$auth\" \"$$base/v1/actions?overdue=true\""; \
+	echo "Burn-down chart:            $$base/v1/studies/1/history.svg"; \
+	echo "  (it needs the token too:  curl -H \"$$auth\" -o burn-down.svg $$base/v1/studies/1/history.svg)"; \
+	echo "Reminder mails (Maildir):   instance/maildir/new"; echo
 	$(BIN)/abate serve --host $(HOST) --port $(PORT)
 
 test: install

@@ -9,6 +9,8 @@ import click
 from abate import create_app, db
 
 DEFAULT_DEMO_FILE = Path("demo") / "scenario.json"
+# How long stopping waits for a webhook attempt in flight; an abandoned one is retried after its lease.
+WORKER_STOP_SECONDS = 5
 
 
 @contextlib.contextmanager
@@ -33,17 +35,87 @@ def main(ctx):
 @click.option("--host", default="127.0.0.1", show_default=True)
 @click.option("--port", default=8000, show_default=True, type=int)
 @click.option("--threads", default=8, show_default=True, type=int, help="Worker threads of the WSGI server.")
+@click.option(
+    "--no-scheduler", is_flag=True, help="Run no reminder scheduler here (run `abate scheduler` on its own instead)."
+)
 @click.pass_obj
-def serve(app, host, port, threads):
+def serve(app, host, port, threads, no_scheduler):
     """Apply pending migrations, then serve the API with waitress (a production WSGI server)."""
     import waitress
+
+    from abate.jobs import build_scheduler
+    from abate.webhook_worker import WebhookWorker
 
     with _connected(app):
         applied = db.upgrade()
     for version, name in applied:
         click.echo(f"applied migration {version:04d} {name}")
+    scheduler = None if no_scheduler else build_scheduler(app.config)
+    if scheduler:
+        scheduler.start()
+        click.echo(_schedule_line(app.config))
+    webhook_worker = WebhookWorker(app.config)
+    webhook_worker.start()
     click.echo(f"Abate serving on http://{host}:{port}/v1/ (OpenAPI: http://{host}:{port}/v1/openapi.json)")
-    waitress.serve(app, host=host, port=port, threads=threads, ident="abate")
+    try:
+        waitress.serve(app, host=host, port=port, threads=threads, ident="abate")
+    finally:
+        webhook_worker.stop(timeout=WORKER_STOP_SECONDS)
+        if scheduler:
+            scheduler.shutdown(wait=False)
+
+
+def _schedule_line(config):
+    return f"reminder digests daily at {config['REMINDER_TIME']} {config['REMINDER_TIMEZONE']}"
+
+
+@main.command("scheduler")
+@click.pass_obj
+def scheduler_command(app):
+    """Run the reminder scheduler in this process (with `abate serve --no-scheduler` elsewhere)."""
+    import logging
+
+    from apscheduler.schedulers.blocking import BlockingScheduler
+
+    from abate.jobs import build_scheduler
+    from abate.webhook_worker import WebhookWorker
+
+    # Each run logs what it recorded and sent; this process has no other output.
+    logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    click.echo(_schedule_line(app.config))
+    webhook_worker = WebhookWorker(app.config)
+    webhook_worker.start()
+    try:
+        build_scheduler(app.config, BlockingScheduler).start()
+    except (KeyboardInterrupt, SystemExit):
+        click.echo("scheduler stopped")
+    finally:
+        webhook_worker.stop(timeout=WORKER_STOP_SECONDS)
+
+
+@main.command("remind")
+@click.option("--now", "run_now", is_flag=True, help="Run the reminder job now.")
+@click.option("--dry-run", is_flag=True, help="Only report what would be recorded and sent.")
+@click.pass_obj
+def remind(app, run_now, dry_run):
+    """Run the reminder job on demand: record today's digests, deliver what is pending, report it."""
+    from abate.jobs import run_reminders
+
+    if not run_now:
+        raise click.UsageError("pass --now to run the reminder job now")
+    with _connected(app):
+        report = run_reminders(app.config, dry_run=dry_run)
+    would = "would be " if dry_run else ""
+    if report.skipped:
+        click.echo(f"skipped: {report.skipped}")
+    for outcome in ("recorded", "sent", "retrying", "failed"):
+        for item in getattr(report, outcome):
+            error = f": {item['last_error']}" if item.get("last_error") and outcome != "sent" else ""
+            click.echo(f"{would}{outcome} {item['dedup_key']}{error}")
+    click.echo(
+        f"reminders for {report.day}: {len(report.recorded)} {would}recorded, {len(report.sent)} {would}sent, "
+        f"{len(report.retrying)} retrying, {len(report.failed)} failed"
+    )
 
 
 @main.group("db")
@@ -86,7 +158,7 @@ def token_create(app, name, role):
 @click.pass_obj
 def token_list(app):
     """List tokens: id, role, name, last use, revocation."""
-    from abate.domain.tokens import tokens_query, token_view
+    from abate.domain.tokens import token_view, tokens_query
     from abate.models import ApiToken
 
     with _connected(app):
@@ -121,17 +193,64 @@ def demo_group():
 @click.option("--file", "path", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None)
 @click.pass_obj
 def demo_load(app, path):
-    """Load the demo studies (once; a second load changes nothing)."""
-    from abate.demo import load_scenario
+    """Load the demo studies through the API client on a loopback server (once; a second load changes nothing)."""
+    from abate.demo import load_in_process
+    from abate.models import Study
 
-    path = path or DEFAULT_DEMO_FILE
+    scenario = json.loads((path or DEFAULT_DEMO_FILE).read_text(encoding="utf-8"))
     with _connected(app):
         db.upgrade()
-        loaded, skipped = load_scenario(json.loads(path.read_text(encoding="utf-8")))
+    loaded, skipped = load_in_process(app, scenario)
+    with _connected(app):
+        ids = {study.title: study.id for study in Study.select().where(Study.title.in_(loaded + skipped))}
     for title in loaded:
-        click.echo(f"loaded demo study {title!r}")
+        click.echo(f"loaded demo study {ids[title]}: {title!r}")
     for title in skipped:
-        click.echo(f"demo study {title!r} is already there; left as it is")
+        click.echo(f"demo study {ids[title]}: {title!r} is already there; left as it is")
+
+
+@main.command("import")
+@click.argument("study_id", type=int)
+@click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--sheet", default=None, help="XLSX: the sheet to read (default: the first).")
+@click.option("--mapping", default=None, help='JSON object {our field: column title}, e.g. \'{"severity": "S"}\'.')
+@click.option("--dry-run", is_flag=True, help="Check every row and report; write nothing.")
+@click.pass_obj
+def import_command(app, study_id, file, sheet, mapping, dry_run):
+    """Import a CSV, XLSX or JSON export into a study: every row checked first, then all rows or none."""
+    from abate.domain.importer import import_worksheet
+    from abate.errors import AbateError
+
+    try:
+        mapping = json.loads(mapping) if mapping else None
+    except ValueError as error:
+        raise click.BadParameter(f"not JSON: {error}", param_hint="--mapping") from error
+    with _connected(app), file.open("rb") as stream:
+        try:
+            report = import_worksheet(
+                study_id, stream, file.name, actor="command line", mapping=mapping, sheet=sheet, dry_run=dry_run
+            )
+        except AbateError as error:
+            for problem in error.errors or []:
+                click.echo(_problem_line(problem), err=True)
+            raise click.ClickException(error.detail) from error
+    for problem in report["problems"]:
+        click.echo(_problem_line(problem))
+    where = f"sheet {report['sheet']!r}, " if report["sheet"] else ""
+    outcome = "checked (dry run, nothing written)" if dry_run else "imported"
+    click.echo(
+        f"{report['file']}: {where}{report['rows']} rows {outcome}: {report['modes']} modes, "
+        f"{report['actions']} actions, {len(report['problems'])} problems"
+    )
+    if report["problems"]:
+        raise SystemExit(1)
+
+
+def _problem_line(problem):
+    """One problem of an import as a line: row, column and message."""
+    row = f"row {problem['row']}" if problem.get("row") else "file"
+    column = f", column {problem['column']!r}" if problem.get("column") else ""
+    return f"{row}{column}: {problem.get('message') or problem.get('field')}"
 
 
 @main.command("openapi")

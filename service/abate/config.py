@@ -16,9 +16,39 @@ SETTINGS = {
     "DB_POOL_SIZE": (10, "PostgreSQL: connections kept per service process."),
     "DB_POOL_TIMEOUT": (10, "PostgreSQL: seconds to wait for a free pooled connection."),
     "SQLITE_BUSY_TIMEOUT": (15, "SQLite: seconds a writer waits for the write lock."),
+    "REMINDER_TIME": ("07:00", "Local time (HH:MM) of the daily reminder run."),
+    "REMINDER_TIMEZONE": ("UTC", "IANA time zone of REMINDER_TIME; the digest's day is the date there."),
+    "REMINDER_DUE_SOON_DAYS": (7, "A digest lists the actions due within this many days (today included)."),
+    "ESCALATION_DAYS": (14, "An action overdue by more than this many days also goes to its study's owner."),
+    "REMINDER_SKIP_WEEKENDS": (False, "true: record no digests on Saturdays and Sundays (pending mail still goes out)."),
+    "SMTP_HOST": ("", "SMTP server for reminders; empty: mail goes into the Maildir instead."),
+    "SMTP_PORT": (587, "SMTP server port."),
+    "SMTP_USER": ("", "SMTP login name; empty: no login."),
+    "SMTP_PASSWORD": ("", "SMTP password."),
+    "SMTP_STARTTLS": (True, "true: upgrade the SMTP connection with STARTTLS, verifying the server's certificate."),
+    "MAIL_FROM": ("Abate <abate@localhost>", "From address of reminder e-mails."),
+    "MAILDIR": (None, "Maildir for reminders when no SMTP host is set. Default: maildir under INSTANCE_PATH."),
+    "WEBHOOK_ALLOWED_HOSTS": (
+        "",
+        "Comma-separated host names or IP addresses webhooks may reach although they are loopback or private "
+        "(link-local and cloud metadata addresses are refused always).",
+    ),
+    "WEBHOOK_TIMEOUT": (15, "Seconds a webhook receiver has to connect and to answer, per attempt."),
+    "WEBHOOK_MAX_ATTEMPTS": (10, "Attempts at one webhook delivery (backing off exponentially) before it fails."),
 }
 
-_INTEGER_SETTINGS = {name for name, (default, _) in SETTINGS.items() if isinstance(default, int)}
+_BOOLEAN_SETTINGS = {name for name, (default, _) in SETTINGS.items() if isinstance(default, bool)}
+_INTEGER_SETTINGS = {name for name, (default, _) in SETTINGS.items() if isinstance(default, int)} - _BOOLEAN_SETTINGS
+_TRUE, _FALSE = {"1", "true", "yes", "on"}, {"0", "false", "no", "off"}
+
+
+def _parse(name, value):
+    """An environment variable's text as the setting's type."""
+    if name in _BOOLEAN_SETTINGS:
+        if value.strip().lower() not in _TRUE | _FALSE:
+            raise ValueError(f"ABATE_{name} must be one of {sorted(_TRUE | _FALSE)}, not {value!r}")
+        return value.strip().lower() in _TRUE
+    return int(value) if name in _INTEGER_SETTINGS else value
 
 
 def load_config(test_config=None, environ=None):
@@ -28,7 +58,7 @@ def load_config(test_config=None, environ=None):
     for name in SETTINGS:
         value = environ.get(f"ABATE_{name}")
         if value not in (None, ""):
-            config[name] = int(value) if name in _INTEGER_SETTINGS else value
+            config[name] = _parse(name, value)
     config.update(test_config or {})
     if not config["DATABASE_URL"]:
         path = Path(config["INSTANCE_PATH"]).resolve() / "abate.sqlite3"

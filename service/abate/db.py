@@ -125,10 +125,10 @@ def upgrade(target=None):
         if isinstance(database.obj, peewee.PostgresqlDatabase):
             database.execute_sql("SELECT pg_advisory_xact_lock(%s)", (_MIGRATION_LOCK_KEY,))
         database.create_tables([SchemaMigration], safe=True)
-        current = schema_version()
+        done = {row.version for row in SchemaMigration.select(SchemaMigration.version)}
         migrator = SchemaMigrator.from_database(database.obj)
         for version, name, module in available_migrations():
-            if version <= current or (target is not None and version > target):
+            if version in done or (target is not None and version > target):
                 continue
             module.upgrade(database.obj, migrator)
             SchemaMigration.create(version=version, name=name, applied_at=utcnow())

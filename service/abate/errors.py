@@ -65,6 +65,13 @@ class PreconditionFailed(AbateError):
     slug = "precondition-failed"
 
 
+class PreconditionRequired(AbateError):
+    """A change that must name the version it is based on came without If-Match (RFC 6585 section 3)."""
+
+    status = 428
+    slug = "precondition-required"
+
+
 class ValidationFailed(AbateError):
     """The request is well-formed but its content breaks a rule; errors lists each field."""
 

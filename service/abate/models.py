@@ -60,6 +60,25 @@ class ScaleLevel(BaseModel):
         indexes = ((("scale_set", "dimension", "value"), True),)
 
 
+class IdempotencyRecord(BaseModel):
+    """The stored outcome of a POST sent with an Idempotency-Key, per token, kept for a while."""
+
+    token_id = pw.IntegerField()
+    key = pw.CharField(max_length=255)
+    # SHA-256 of method, path and body: the same key with another request is refused.
+    fingerprint = pw.CharField(max_length=64)
+    state = pw.CharField(max_length=16)
+    response_status = pw.IntegerField(null=True)
+    response_headers = pw.TextField(default="{}")
+    response_body = pw.TextField(default="")
+    created_at = pw.DateTimeField(default=utcnow)
+    expires_at = pw.DateTimeField(index=True)
+
+    class Meta:
+        table_name = "idempotency_record"
+        indexes = ((("token_id", "key"), True),)
+
+
 class ApiToken(BaseModel):
     """An API token; only the SHA-256 of its secret is kept."""
 
@@ -88,11 +107,16 @@ class Study(BaseModel):
     severity_threshold = pw.SmallIntegerField()
     # Running total of current RPN over active modes, moved by every risk event.
     total_rpn = pw.IntegerField(default=0)
+    external_system = pw.CharField(max_length=100, null=True)
+    external_key = pw.CharField(max_length=200, null=True)
     # Count of risk events so far; a study's ETag changes with it.
     risk_revision = pw.IntegerField(default=0)
     version = pw.IntegerField(default=1)
     created_at = pw.DateTimeField(default=utcnow)
     updated_at = pw.DateTimeField(default=utcnow)
+
+    class Meta:
+        indexes = ((("external_system", "external_key"), True),)
 
 
 class StudyTag(BaseModel):
@@ -125,13 +149,18 @@ class FailureMode(BaseModel):
     initial_occurrence = pw.SmallIntegerField()
     initial_detection = pw.SmallIntegerField()
     status = pw.CharField(max_length=16, default="active")
+    external_system = pw.CharField(max_length=100, null=True)
+    external_key = pw.CharField(max_length=200, null=True)
     version = pw.IntegerField(default=1)
     created_at = pw.DateTimeField(default=utcnow)
     updated_at = pw.DateTimeField(default=utcnow)
     retired_at = pw.DateTimeField(null=True)
 
     class Meta:
-        indexes = ((("study", "status", "rpn"), False),)
+        indexes = (
+            (("study", "status", "rpn"), False),
+            (("external_system", "external_key"), True),
+        )
 
     @classmethod
     def needs_action_expr(cls, action_threshold, severity_threshold):
@@ -234,4 +263,105 @@ class RiskEvent(BaseModel):
         )
 
 
-ALL_MODELS = [ScaleSet, ScaleLevel, ApiToken, Study, StudyTag, FailureMode, CorrectiveAction, RiskEvent]
+class Reminder(BaseModel):
+    """One e-mail of the reminder outbox: a recipient's digest for one local day, sent at least once."""
+
+    dedup_key = pw.CharField(max_length=400, unique=True)
+    recipient = pw.CharField(max_length=320, index=True)
+    local_day = pw.DateField(index=True)
+    status = pw.CharField(max_length=16, default="pending")
+    attempts = pw.IntegerField(default=0)
+    last_error = pw.TextField(default="")
+    next_attempt_at = pw.DateTimeField()
+    sent_at = pw.DateTimeField(null=True)
+    # The digest as JSON, fixed when recorded, so that every retry sends the same message.
+    payload = pw.TextField()
+    created_at = pw.DateTimeField(default=utcnow)
+
+    class Meta:
+        indexes = (
+            (("status", "next_attempt_at"), False),
+            (("status", "id"), False),
+        )
+
+
+class OwnerPreference(BaseModel):
+    """What an owner (by lower-case e-mail address) wants to be sent; no row means every notice."""
+
+    email = pw.CharField(max_length=320, unique=True)
+    due_soon_notices = pw.BooleanField(default=True)
+    version = pw.IntegerField(default=1)
+    updated_at = pw.DateTimeField(default=utcnow)
+
+
+class WebhookSubscription(BaseModel):
+    """Where an admin wants which webhook event types sent, and the secret that signs them."""
+
+    url = pw.TextField()
+    # Comma-separated event types, in the order of domain.webhooks.EVENT_TYPES.
+    events = pw.TextField()
+    description = pw.TextField(default="")
+    # Kept in full because every delivery is signed with it; shown to the admin only once.
+    secret = pw.CharField(max_length=200)
+    active = pw.BooleanField(default=True)
+    disabled_reason = pw.TextField(default="")
+    version = pw.IntegerField(default=1)
+    created_at = pw.DateTimeField(default=utcnow)
+    updated_at = pw.DateTimeField(default=utcnow)
+
+    @property
+    def event_types(self):
+        """The event types the subscription takes, as a list."""
+        return self.events.split(",")
+
+
+class WebhookDelivery(BaseModel):
+    """One event for one subscription in the webhook outbox: the body fixed when queued, its stable webhook-id."""
+
+    subscription = pw.ForeignKeyField(WebhookSubscription, backref="deliveries", on_delete="CASCADE")
+    message_id = pw.CharField(max_length=64)
+    event_type = pw.CharField(max_length=32)
+    body = pw.TextField()
+    status = pw.CharField(max_length=16, default="pending")
+    # Attempts since the message was queued (or queued again); the attempt log keeps every one.
+    attempts = pw.IntegerField(default=0)
+    next_attempt_at = pw.DateTimeField(null=True)
+    last_status_code = pw.IntegerField(null=True)
+    last_error = pw.TextField(default="")
+    delivered_at = pw.DateTimeField(null=True)
+    created_at = pw.DateTimeField(default=utcnow)
+
+    class Meta:
+        indexes = (
+            (("subscription", "message_id"), True),
+            (("status", "next_attempt_at"), False),
+        )
+
+
+class WebhookAttempt(BaseModel):
+    """One HTTP attempt at a delivery: the receiver's status or the error, and how long it took."""
+
+    delivery = pw.ForeignKeyField(WebhookDelivery, backref="attempt_log", on_delete="CASCADE")
+    attempted_at = pw.DateTimeField()
+    status_code = pw.IntegerField(null=True)
+    error = pw.TextField(default="")
+    response_excerpt = pw.TextField(default="")
+    duration_ms = pw.IntegerField()
+
+
+ALL_MODELS = [
+    ScaleSet,
+    ScaleLevel,
+    IdempotencyRecord,
+    ApiToken,
+    Study,
+    StudyTag,
+    FailureMode,
+    CorrectiveAction,
+    RiskEvent,
+    Reminder,
+    OwnerPreference,
+    WebhookSubscription,
+    WebhookDelivery,
+    WebhookAttempt,
+]

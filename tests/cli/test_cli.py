@@ -1,5 +1,6 @@
 """The `abate` command, run as a real subprocess against a SQLite file."""
 
+import datetime
 import hashlib
 import json
 import os
@@ -12,7 +13,9 @@ from pathlib import Path
 
 import requests
 
-from conftest import HEAD_SCHEMA_VERSION
+from abate import db
+from abate.domain.tokens import create_token
+from conftest import HEAD_SCHEMA_VERSION, authorised_client, build_app, close_pool
 
 ROOT = Path(__file__).resolve().parents[2]
 ABATE = str(Path(sys.executable).with_name("abate"))
@@ -52,21 +55,80 @@ def test_token_create_refuses_an_unknown_role(tmp_path):
     assert result.returncode == 2 and "owner" in result.stderr
 
 
-def test_demo_load_creates_the_scenario_once(tmp_path):
+def _final_totals(scenario):
+    """Each study's total RPN after its timeline, replayed by hand: RPN = S x O x D (IEC 60812:2018) per active mode."""
+    ratings, study_of, mode_of_action = {}, {}, {}
+    for step in sorted(scenario["timeline"], key=lambda step: step["day"]):
+        if step["do"] == "add_mode":
+            ratings[step["key"]] = {name: step["mode"][name] for name in ("severity", "occurrence", "detection")}
+            study_of[step["key"]] = step["study"]
+        elif step["do"] == "open_action":
+            mode_of_action[step["key"]] = step["mode"]
+        elif step["do"] == "close_action":
+            ratings[mode_of_action[step["action"]]].update(step["result"])
+        elif step["do"] == "rerate":
+            ratings[step["mode"]].update(step["changes"])
+        elif step["do"] == "retire_mode":
+            del ratings[step["mode"]]
+    totals = dict.fromkeys(study_of.values(), 0)
+    for key, values in ratings.items():
+        totals[study_of[key]] += values["severity"] * values["occurrence"] * values["detection"]
+    return totals
+
+
+DEMO_TABLES = ("study", "failure_mode", "corrective_action", "risk_event", "api_token", "study_tag")
+
+
+def test_demo_load_replays_the_timeline_once_through_the_api(tmp_path):
     scenario = json.loads(SCENARIO.read_text(encoding="utf-8"))
     first = run_abate(tmp_path, "demo", "load").stdout
-    assert first.count("loaded demo study") == len(scenario["studies"])
+    assert first.count("loaded demo study") == len(scenario["studies"]) == 3
+    counts = {table: _rows(tmp_path, f"SELECT COUNT(*) FROM {table}") for table in DEMO_TABLES}
     second = run_abate(tmp_path, "demo", "load").stdout
     assert second.count("already there") == len(scenario["studies"])
-    for position, study in enumerate(scenario["studies"], start=1):
-        final_rpns = []
-        for mode in study["modes"]:
-            ratings = {name: mode[name] for name in ("severity", "occurrence", "detection")}
-            for change in mode.get("rerated", []):
-                ratings.update({name: change[name] for name in ratings if name in change})
-            final_rpns.append(ratings["severity"] * ratings["occurrence"] * ratings["detection"])
-        [(total,)] = _rows(tmp_path, f"SELECT total_rpn FROM study WHERE id = {position}")
-        assert total == sum(final_rpns)
+    assert {table: _rows(tmp_path, f"SELECT COUNT(*) FROM {table}") for table in DEMO_TABLES} == counts
+
+    expected = _final_totals(scenario)
+    for position, spec in enumerate(scenario["studies"], start=1):
+        [(title, total)] = _rows(tmp_path, f"SELECT title, total_rpn FROM study WHERE id = {position}")
+        assert (title, total) == (spec["title"], expected[spec["key"]])
+    added = sum(1 for step in scenario["timeline"] if step["do"] == "add_mode")
+    opened = sum(1 for step in scenario["timeline"] if step["do"] == "open_action")
+    assert counts["failure_mode"] == [(added,)] and counts["corrective_action"] == [(opened,)]
+    # One admin token did the loading through the client, and it no longer works.
+    [(name, role, revoked_at)] = _rows(tmp_path, "SELECT name, role, revoked_at FROM api_token")
+    assert (name, role) == ("demo loader", "admin") and revoked_at is not None
+    assert _rows(tmp_path, "SELECT DISTINCT source, actor FROM risk_event") == [("api", "demo loader (token 1)")]
+    statuses = dict(_rows(tmp_path, "SELECT status, COUNT(*) FROM corrective_action GROUP BY status"))
+    closed = sum(1 for step in scenario["timeline"] if step["do"] == "close_action")
+    assert statuses == {"closed": closed, "open": opened - closed - 2, "in_progress": 1, "cancelled": 1}
+    [(overdue,)] = _rows(
+        tmp_path, "SELECT COUNT(*) FROM corrective_action WHERE status = 'open' AND due_date < date('now')"
+    )
+    assert overdue >= 3
+    [(first_event, last_event)] = _rows(tmp_path, "SELECT MIN(occurred_at), MAX(occurred_at) FROM risk_event")
+    span = datetime.datetime.fromisoformat(last_event) - datetime.datetime.fromisoformat(first_event)
+    assert span >= datetime.timedelta(days=scenario["span_days"] - 1)
+
+
+def test_the_demo_history_falls_in_every_study(tmp_path):
+    run_abate(tmp_path, "demo", "load")
+    app = build_app(f"sqlite:///{tmp_path / 'cli.sqlite3'}", tmp_path)
+    try:
+        with db.database.connection_context():
+            client = authorised_client(app, create_token("history check", "reader")[1])
+        for study_id in (1, 2, 3):
+            points = client.get(f"/v1/studies/{study_id}/history", query_string={"interval": "week"}).get_json()[
+                "points"
+            ]
+            # The quick study starts in month three; the others span the whole six months.
+            assert len(points) >= 15
+            assert points[0]["total_rpn"] > points[-1]["total_rpn"], study_id
+            assert points[-1]["in_progress"] and sum(point["change"]["actions"] for point in points) < 0
+            chart = client.get(f"/v1/studies/{study_id}/history.svg")
+            assert chart.status_code == 200 and chart.mimetype == "image/svg+xml"
+    finally:
+        close_pool()
 
 
 def _free_port():

@@ -11,22 +11,40 @@ from abate_client.errors import (
     Unauthorized,
     ValidationFailed,
 )
-from abate_client.models import Mode, Ratings, RiskEvent, RiskSummary, ScaleSet, Study
+from abate_client.models import (
+    Action,
+    HistoryPoint,
+    Mode,
+    PortfolioHistory,
+    Ratings,
+    RiskEvent,
+    RiskSummary,
+    ScaleSet,
+    Study,
+    StudyHistory,
+)
+from abate_client.webhooks import WebhookSignatureError, verify_signature
 
 __all__ = [
     "AbateError",
+    "Action",
     "Client",
     "Conflict",
     "Forbidden",
+    "HistoryPoint",
     "Mode",
     "NotFound",
+    "PortfolioHistory",
     "PreconditionFailed",
     "Ratings",
     "RiskEvent",
     "RiskSummary",
     "ScaleSet",
     "Study",
+    "StudyHistory",
     "TransportError",
     "Unauthorized",
     "ValidationFailed",
+    "WebhookSignatureError",
+    "verify_signature",
 ]

@@ -1,11 +1,12 @@
 """The Abate client: one requests.Session, a timeout on every call, a resource group per collection."""
 
+import datetime
 from urllib.parse import urlsplit, urlunsplit
 
 import requests
 
 from abate_client.errors import AbateError, TransportError, error_for
-from abate_client.models import Mode, RiskEvent, ScaleSet, Study
+from abate_client.models import Action, Mode, PortfolioHistory, RiskEvent, ScaleSet, Study, StudyHistory
 
 DEFAULT_TIMEOUT = 10.0
 
@@ -23,6 +24,8 @@ class Client:
         self.studies = Studies(self)
         self.modes = Modes(self)
         self.events = Events(self)
+        self.actions = Actions(self)
+        self.history = History(self)
 
     def __enter__(self):
         return self
@@ -47,7 +50,7 @@ class Client:
             headers["If-Match"] = if_match
         try:
             response = self._session.request(
-                method, self._url(path), params=params, json=json, headers=headers, timeout=self.timeout
+                method, self._url(path), params=params, json=_encoded(json), headers=headers, timeout=self.timeout
             )
         except requests.RequestException as error:
             raise TransportError(f"{method} {path} failed: {error}") from error
@@ -66,6 +69,21 @@ class Client:
         if target.scheme:
             return urlunsplit((base.scheme, base.netloc, target.path, target.query, ""))
         return self.base_url + path
+
+
+def _encoded(value):
+    """value with dates and datetimes spelled as the API reads them (YYYY-MM-DD, RFC 3339 with Z for UTC)."""
+    if isinstance(value, dict):
+        return {key: _encoded(item) for key, item in value.items()}
+    if isinstance(value, list | tuple):
+        return [_encoded(item) for item in value]
+    if isinstance(value, datetime.datetime):
+        if value.tzinfo is None:
+            raise ValueError(f"{value!r} has no time zone; give an aware datetime, e.g. with datetime.UTC")
+        return value.astimezone(datetime.UTC).isoformat().replace("+00:00", "Z")
+    if isinstance(value, datetime.date):
+        return value.isoformat()
+    return value
 
 
 def _json(response):
@@ -184,3 +202,64 @@ class Events(_Resources):
     def list(self, study_id, *, page_size=None, **filters):
         """The study's risk events matching the filters (mode_id, kind), oldest first, fetched lazily."""
         return self._every(RiskEvent, f"/v1/studies/{int(study_id)}/events", filters, page_size)
+
+
+class Actions(_Resources):
+    """Corrective actions: opened on a mode, listed with filters, changed, closed, reopened or cancelled."""
+
+    def create(self, mode_id, **fields):
+        """Open an action on a mode (title, kind, owner {name, email}, due_date, target, ...)."""
+        return self._one(Action, "POST", f"/v1/modes/{int(mode_id)}/actions", json=fields)
+
+    def list(self, *, page_size=None, **filters):
+        """Actions matching the filters (study_id, mode_id, status, owner_email, overdue, due_before, ...), lazily.
+
+        `sort` is due_date (the default) or -due_date.
+        """
+        return self._every(Action, "/v1/actions", filters, page_size)
+
+    def get(self, action_id):
+        """The action with this id."""
+        return self._one(Action, "GET", f"/v1/actions/{int(action_id)}")
+
+    def update(self, action, reason=None, **changes):
+        """Change an unfinished action as read (If-Match its ETag): owner, due_date, status, target, ..."""
+        body = changes if reason is None else {**changes, "reason": reason}
+        return self._one(Action, "PATCH", f"/v1/actions/{action.id}", json=body, if_match=_etag_of(action))
+
+    def close(self, action, evidence, result=None, **fields):
+        """Close an action as read with its evidence and verified result ratings; the mode is re-rated with it.
+
+        fields may carry verified_by and (admin tokens) effective_at.
+        """
+        body = {"evidence": evidence, "result": result or {}, **fields}
+        return self._one(Action, "POST", f"/v1/actions/{action.id}/close", json=body, if_match=_etag_of(action))
+
+    def reopen(self, action, reason):
+        """Reopen a closed action as read: the ratings its closure changed go back."""
+        return self._finish(action, "reopen", reason)
+
+    def cancel(self, action, reason):
+        """Cancel an unfinished action as read; the mode's ratings stay."""
+        return self._finish(action, "cancel", reason)
+
+    def _finish(self, action, verb, reason):
+        body = {"reason": reason}
+        return self._one(Action, "POST", f"/v1/actions/{action.id}/{verb}", json=body, if_match=_etag_of(action))
+
+
+class History(_Resources):
+    """How risk moved over time: one study's burn-down, or the portfolio's."""
+
+    def study(self, study_id, *, interval=None, from_=None, to=None, modes=None):
+        """The study's history: interval day, week (default) or month; from_/to dates; modes "all" or ids."""
+        if isinstance(modes, list | tuple):
+            modes = ",".join(str(int(mode_id)) for mode_id in modes)
+        params = _query({"interval": interval, "from": from_, "to": to, "modes": modes}, None)
+        response = self._client.request("GET", f"/v1/studies/{int(study_id)}/history", params=params)
+        return StudyHistory.from_json(_json(response))
+
+    def portfolio(self, *, interval=None, from_=None, to=None, **filters):
+        """Totals summed over the studies matching the filters (tag, site, kind, status, owner_email, timezone)."""
+        params = _query({"interval": interval, "from": from_, "to": to, **filters}, None)
+        return PortfolioHistory.from_json(_json(self._client.request("GET", "/v1/history", params=params)))

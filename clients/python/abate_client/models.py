@@ -165,3 +165,95 @@ class RiskEvent(_FromJson):
     study_max_rpn: int
     study_needs_action_count: int
     study_revision: int
+
+
+def _date(value):
+    return None if value is None else datetime.date.fromisoformat(value)
+
+
+@dataclasses.dataclass(frozen=True)
+class Action(_FromJson):
+    """A corrective action on a failure mode; `target` and `result` are ratings dicts (any may be None)."""
+
+    converters: ClassVar[dict] = {
+        **_TIMESTAMPS,
+        "closed_at": _timestamp,
+        "cancelled_at": _timestamp,
+        "due_date": _date,
+        "original_due_date": _date,
+    }
+
+    id: int
+    mode_id: int
+    study_id: int
+    title: str
+    description: str
+    kind: str
+    owner: dict[str, str]
+    due_date: datetime.date
+    original_due_date: datetime.date
+    due_date_changes: int
+    status: str
+    overdue: bool
+    days_overdue: int
+    target: dict[str, int | None] | None
+    external_ref: dict[str, str] | None
+    result: dict[str, int | None] | None
+    rating_raised: bool
+    evidence: str
+    verified_by: str
+    closed_at: datetime.datetime | None
+    cancelled_at: datetime.datetime | None
+    version: int
+    created_at: datetime.datetime
+    updated_at: datetime.datetime
+    etag: str | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class HistoryPoint(_FromJson):
+    """A study's (or the portfolio's) state at the end of one interval; `change` is RPN change by cause."""
+
+    converters: ClassVar[dict] = {"at": _timestamp}
+
+    at: datetime.datetime
+    period: str
+    in_progress: bool
+    total_rpn: int
+    max_rpn: int
+    needs_action_count: int
+    open_actions: int
+    overdue_actions: int
+    change: dict[str, int]
+
+
+def _points(values):
+    return [HistoryPoint.from_json(value) for value in values]
+
+
+@dataclasses.dataclass(frozen=True)
+class StudyHistory(_FromJson):
+    """A study's risk over time: points per interval, optional per-mode series, and the projection ahead."""
+
+    converters: ClassVar[dict] = {"points": _points}
+
+    study_id: int
+    interval: str
+    timezone: str
+    points: list[HistoryPoint]
+    modes: list[dict[str, Any]]
+    projection: dict[str, Any]
+    caution: str
+
+
+@dataclasses.dataclass(frozen=True)
+class PortfolioHistory(_FromJson):
+    """Risk over time summed over the studies that matched the filters."""
+
+    converters: ClassVar[dict] = {"points": _points}
+
+    interval: str
+    timezone: str
+    study_ids: list[int]
+    points: list[HistoryPoint]
+    caution: str

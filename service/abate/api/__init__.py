@@ -17,6 +17,8 @@ log = logging.getLogger(__name__)
 API_TITLE = "Abate"
 API_VERSION = "v1"
 BODY_METHODS = ("POST", "PUT", "PATCH")
+# Endpoints whose body is a file (multipart or raw CSV/XLSX/JSON), not a JSON document.
+FILE_BODY_ENDPOINTS = {"transfer.StudyImport"}
 
 
 class ProblemErrorSchema(ma.Schema):
@@ -47,6 +49,7 @@ class AbateApi(Api):
         super()._register_error_handlers()
         self._app.register_error_handler(AbateError, _domain_problem)
         self._app.register_error_handler(peewee.OperationalError, _database_unavailable)
+        self._app.register_error_handler(peewee.IntegrityError, _integrity_conflict)
         self._app.register_error_handler(peewee.InterfaceError, _database_unavailable)
 
     def _register_responses(self):
@@ -84,6 +87,14 @@ def _domain_problem(error):
     return problem_response(error.problem(request.path), error.status, error.headers)
 
 
+def _integrity_conflict(error):
+    # A unique index decided a race that the domain's own checks could not see coming.
+    body = problem_document(
+        409, "the change collides with another write (a unique key is taken); read and retry", request.path
+    )
+    return problem_response(body, 409)
+
+
 def _database_unavailable(error):
     log.warning("database unavailable: %s", error)
     body = problem_document(503, "the database is unavailable or busy; retry shortly", request.path)
@@ -113,13 +124,28 @@ def _has_body():
 
 def _require_json_body():
     """A request body must be JSON (415 otherwise); an empty body is left to the schema."""
+    if request.endpoint in FILE_BODY_ENDPOINTS:
+        return
     if request.method in BODY_METHODS and _has_body() and not request.is_json:
         raise UnsupportedMediaType(f"send the body as application/json, not {request.mimetype or 'untyped'}")
 
 
 def init_app(app):
     """Create the Api for app, register every resource's blueprint and the request checks."""
-    from abate.api import actions, health, history, modes, scales, studies, tokens
+    from abate.api import (
+        actions,
+        health,
+        history,
+        idempotency,
+        modes,
+        owners,
+        reminders,
+        scales,
+        studies,
+        tokens,
+        transfer,
+        webhooks,
+    )
     from abate.api.auth import require_token
 
     app.config.update(
@@ -143,8 +169,11 @@ def init_app(app):
     api.register_converter(
         BoundedIntegerConverter, lambda converter: {"type": "integer", "minimum": 0, "maximum": MAX_ID}
     )
-    for module in (health, scales, studies, modes, actions, history, tokens):
+    for module in (health, scales, studies, modes, actions, history, tokens, reminders, owners, webhooks, transfer):
         api.register_blueprint(module.blp)
     app.before_request(require_token)
     app.before_request(_require_json_body)
+    app.before_request(idempotency.start)
+    app.after_request(idempotency.finish)
+    app.teardown_request(idempotency.abandon)
     return api

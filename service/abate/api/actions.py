@@ -8,6 +8,7 @@ from abate.api.auth import current_actor
 from abate.api.common import (
     IF_MATCH_PARAMETER,
     REQUEST_SOURCE,
+    ExternalRefSchema,
     Id,
     PageArgsSchema,
     Rating,
@@ -20,8 +21,10 @@ from abate.api.common import (
 )
 from abate.api.studies import OwnerSchema, RatingsSchema
 from abate.domain import actions
+from abate.domain.references import find_by_reference
 from abate.domain.studies import CAUTION
 from abate.domain.versions import action_tag
+from abate.models import CorrectiveAction
 
 blp = Blueprint("actions", __name__, url_prefix="/v1", description="Corrective actions")
 
@@ -32,13 +35,6 @@ class TargetSchema(ma.Schema):
     severity = Rating(allow_none=True)
     occurrence = Rating(allow_none=True)
     detection = Rating(allow_none=True)
-
-
-class ExternalRefSchema(ma.Schema):
-    """The action's key in another system (ticketing, maintenance); unique per system."""
-
-    system = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=100))
-    key = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
 
 
 class ActionSchema(ma.Schema):
@@ -212,7 +208,7 @@ class ActionById(MethodView):
     def patch(self, changes, action_id):
         """Change an unfinished action: owner, due date (counted), status open/in_progress, target."""
         action = actions.update_action(
-            action_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            action_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags(required=True)
         )
         return _respond(action)
 
@@ -273,3 +269,47 @@ class ActionEffects(MethodView):
     def get(self, study_id):
         """Closed actions ranked by risk removed, planned (target) against achieved (result)."""
         return {"items": actions.action_effects(study_id), "caution": CAUTION}
+
+
+class ActionByReferenceSchema(ActionPatchSchema):
+    """An action as another system knows it; mode_id names the mode when the action is new."""
+
+    mode_id = Id(metadata={"description": "Required when no action carries the reference yet"})
+
+
+@blp.route("/actions/by-ref/<string:system>/<string:key>")
+class ActionByReference(MethodView):
+    """An action addressed by its key in another system: how a ticketing system keeps in sync."""
+
+    @blp.response(200, ActionSchema)
+    def get(self, system, key):
+        """Read the action carrying this reference."""
+        return _respond(find_by_reference(CorrectiveAction, system, key))
+
+    @blp.arguments(ActionByReferenceSchema)
+    @blp.response(200, ActionSchema)
+    @blp.alt_response(201, schema=ActionSchema, description="Created: no action carried the reference")
+    @blp.alt_response(409, description="The action is closed or cancelled")
+    @blp.doc(parameters=[IF_MATCH_PARAMETER])
+    def put(self, data, system, key):
+        """Create the action with this reference, or change it (If-Match optional)."""
+        action, created = actions.put_action_by_reference(
+            system, key, data, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
+        )
+        return _respond(action, 201 if created else 200)
+
+
+@blp.route("/actions/by-ref/<string:system>/<string:key>/close")
+class ActionClosureByReference(MethodView):
+    """Closing an action addressed by its external reference."""
+
+    @blp.arguments(CloseSchema)
+    @blp.response(200, ActionSchema)
+    @blp.alt_response(409, description="Already closed or cancelled")
+    def post(self, data, system, key):
+        """Close the action carrying this reference, with its verified result."""
+        action = find_by_reference(CorrectiveAction, system, key)
+        closed = actions.close_action(
+            action.id, data, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
+        )
+        return _respond(closed)

@@ -8,6 +8,7 @@ from flask import request
 from werkzeug.routing import IntegerConverter
 
 from abate.domain.pagination import paginate
+from abate.domain.versions import IF_MATCH_MISSING
 
 # The largest id a 64-bit database column holds; a larger one names nothing (404 in paths, 422 elsewhere).
 MAX_ID = 2**63 - 1
@@ -64,6 +65,13 @@ class AsOf(ma.fields.Field):
         return {"type": "string", "description": "YYYY-MM-DD or an RFC 3339 timestamp"}
 
 
+class ExternalRefSchema(ma.Schema):
+    """A key in another system (ticketing, maintenance, PLM); unique per system and kind of resource."""
+
+    system = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=100))
+    key = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
+
+
 class PageArgsSchema(ma.Schema):
     """Cursor pagination: `limit` items from the position `cursor` names."""
 
@@ -114,9 +122,14 @@ def etag(tag):
     return f'"{tag}"'
 
 
-def if_match_tags():
-    """The strong tags If-Match names; None without the header or with * (weak tags never match)."""
-    if not request.if_match or request.if_match.star_tag:
+def if_match_tags(required=False):
+    """The strong tags If-Match names (weak tags never match); None with *.
+
+    Without the header: None, or IF_MATCH_MISSING where the request must carry it (PATCH).
+    """
+    if not request.headers.get("If-Match"):
+        return IF_MATCH_MISSING if required else None
+    if request.if_match.star_tag:
         return None
     return set(request.if_match.as_set())
 

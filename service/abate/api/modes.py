@@ -9,6 +9,7 @@ from abate.api.common import (
     IF_MATCH_PARAMETER,
     REQUEST_SOURCE,
     AsOf,
+    ExternalRefSchema,
     PageArgsSchema,
     Rating,
     ReasonSchema,
@@ -62,6 +63,7 @@ class ModeSchema(ma.Schema):
     )
     priority = ma.fields.String(dump_only=True, metadata={"description": ", ".join(PRIORITY_BANDS)})
     status = ma.fields.String(dump_only=True, metadata={"description": "active or retired"})
+    external_ref = ma.fields.Nested(ExternalRefSchema, allow_none=True)
     version = ma.fields.Integer(dump_only=True)
     created_at = UTCDateTime(dump_only=True)
     updated_at = UTCDateTime(dump_only=True)
@@ -164,7 +166,7 @@ class ModeById(MethodView):
     def patch(self, changes, mode_id):
         """Change a mode's text, or re-rate it with a reason (appends a risk event)."""
         mode = modes.update_mode(
-            mode_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            mode_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags(required=True)
         )
         return _respond(mode)
 

@@ -9,6 +9,7 @@ from abate.api.common import (
     IF_MATCH_PARAMETER,
     REQUEST_SOURCE,
     AsOf,
+    ExternalRefSchema,
     Id,
     PageArgsSchema,
     UTCDateTime,
@@ -20,6 +21,7 @@ from abate.api.common import (
 from abate.domain import events as risk_events
 from abate.domain import history, studies
 from abate.domain.events import EVENT_KINDS
+from abate.domain.references import reference_filter
 from abate.domain.versions import study_tag
 from abate.models import RiskEvent, Study
 
@@ -120,6 +122,7 @@ class StudySchema(ma.Schema):
         validate=ma.validate.Range(min=1, max=10),
         metadata={"description": "A mode with severity at or above this needs action whatever its RPN"},
     )
+    external_ref = ma.fields.Nested(ExternalRefSchema, allow_none=True)
     risk = ma.fields.Nested(RiskSummarySchema, dump_only=True)
     version = ma.fields.Integer(dump_only=True)
     risk_revision = ma.fields.Integer(dump_only=True, metadata={"description": "Risk events so far"})
@@ -147,6 +150,8 @@ class StudyQueryArgsSchema(PageArgsSchema):
     kind = ma.fields.String(validate=_KIND)
     tag = ma.fields.String()
     owner_email = ma.fields.String(metadata={"description": "Owner e-mail, case-insensitive"})
+    external_system = ma.fields.String()
+    external_key = ma.fields.String()
 
 
 class RatingsSchema(ma.Schema):
@@ -210,6 +215,7 @@ class Studies(MethodView):
     def get(self, args):
         """List studies, oldest first."""
         query = studies.studies_query(args.get("status"), args.get("kind"), args.get("tag"), args.get("owner_email"))
+        query = reference_filter(query, Study, args.get("external_system"), args.get("external_key"))
         return page_of(query, [(Study.id, False)], args, studies.study_views)
 
     @blp.arguments(StudySchema)
@@ -241,7 +247,7 @@ class StudyById(MethodView):
     def patch(self, changes, study_id):
         """Change a study; If-Match must name its current ETag, which moves with every risk event."""
         study = studies.update_study(
-            study_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
+            study_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags(required=True)
         )
         return _respond(study)
 

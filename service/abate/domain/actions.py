@@ -6,11 +6,12 @@ from abate.db import database
 from abate.domain import events as risk_events
 from abate.domain.clock import local_today, utcnow
 from abate.domain.modes import apply_ratings, locked_active_mode, ratings_of
+from abate.domain.references import reference_view, save_referenced, set_reference
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings
 from abate.domain.studies import get_study, require_open_for_changes
 from abate.domain.versions import action_tag, check_precondition, save_new_version
-from abate.errors import Conflict, InvalidTransition, NotFound
+from abate.errors import InvalidTransition, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, RiskEvent, Study
 
 ACTION_KINDS = ("prevention", "detection", "design_change")
@@ -36,26 +37,11 @@ def _set_target(action, target):
         setattr(action, f"target_{name}", (target or {}).get(name))
 
 
-def _check_external_ref_free(external_ref, own_id=None):
-    if not external_ref:
-        return
-    query = CorrectiveAction.select().where(
-        (CorrectiveAction.external_system == external_ref["system"])
-        & (CorrectiveAction.external_key == external_ref["key"])
-    )
-    if own_id is not None:
-        query = query.where(CorrectiveAction.id != own_id)
-    if query.exists():
-        raise Conflict(f"an action already carries the reference {external_ref['system']}/{external_ref['key']}")
-
-
 def create_action(mode_id, data, *, actor, source):
     """Open a corrective action on an active mode."""
     with database.atomic():
         study, mode = locked_active_mode(mode_id)
         check_ratings(study.scale_set, {key: value for key, value in (data.get("target") or {}).items() if value})
-        external_ref = data.get("external_ref")
-        _check_external_ref_free(external_ref)
         occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
         action = CorrectiveAction(
             mode=mode,
@@ -68,19 +54,34 @@ def create_action(mode_id, data, *, actor, source):
             status=data.get("status", "open"),
             created_at=occurred_at,
             updated_at=occurred_at,
-            external_system=external_ref["system"] if external_ref else None,
-            external_key=external_ref["key"] if external_ref else None,
         )
         _set_target(action, data.get("target"))
-        try:
-            with database.atomic():
-                action.save()
-        except pw.IntegrityError as error:
-            raise Conflict("an action already carries this external reference") from error
+        set_reference(action, data.get("external_ref"))
+        save_referenced(action)
         risk_events.record_event(
             study, "action_created", mode=mode, action=action, actor=actor, source=source, occurred_at=occurred_at
         )
     return action
+
+
+def put_action_by_reference(system, key, data, *, actor, source, expected_tags=None):
+    """Create the action carrying system/key (on data's mode_id) or change it; return (action, created)."""
+    existing = CorrectiveAction.get_or_none(
+        (CorrectiveAction.external_system == system) & (CorrectiveAction.external_key == key)
+    )
+    changes = {name: value for name, value in data.items() if name != "mode_id"}
+    if existing is not None:
+        return update_action(existing.id, changes, actor=actor, source=source, expected_tags=expected_tags), False
+    missing = [name for name in ("mode_id", "title", "kind", "owner", "due_date") if name not in data]
+    if missing:
+        raise ValidationFailed(
+            f"no action carries {system}/{key} yet; creating one needs {', '.join(missing)}",
+            errors=[field_error(name, "required to create the action") for name in missing],
+        )
+    created = create_action(
+        data["mode_id"], {**changes, "external_ref": {"system": system, "key": key}}, actor=actor, source=source
+    )
+    return created, True
 
 
 def _locked_action(action_id):
@@ -107,10 +108,7 @@ def update_action(action_id, changes, *, actor, source, expected_tags=None):
             check_ratings(study.scale_set, {key: value for key, value in (changes["target"] or {}).items() if value})
             _set_target(action, changes["target"])
         if "external_ref" in changes:
-            reference = changes["external_ref"]
-            _check_external_ref_free(reference, own_id=action.id)
-            action.external_system = reference["system"] if reference else None
-            action.external_key = reference["key"] if reference else None
+            set_reference(action, changes["external_ref"])
         for name in _TEXT_FIELDS:
             if name in changes:
                 setattr(action, name, changes[name])
@@ -315,9 +313,7 @@ def action_views(actions):
                 "overdue": days_overdue(action, today) > 0,
                 "days_overdue": days_overdue(action, today),
                 "target": _ratings_or_none(action, "target"),
-                "external_ref": {"system": action.external_system, "key": action.external_key}
-                if action.external_system
-                else None,
+                "external_ref": reference_view(action),
                 "result": _ratings_or_none(action, "result"),
                 "rating_raised": bool(closure and closure.rating_raised),
                 "evidence": action.evidence,

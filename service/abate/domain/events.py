@@ -5,7 +5,9 @@ import datetime
 import peewee as pw
 
 from abate.db import lock_for_update
+from abate.domain import webhooks
 from abate.domain.clock import utcnow
+from abate.domain.scoring import RiskPolicy, needs_action_reasons
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
 from abate.models import CorrectiveAction, FailureMode, RiskEvent, Study
 
@@ -98,7 +100,7 @@ def record_event(
     study.risk_revision += 1
     study.save(only=[Study.total_rpn, Study.risk_revision])
     active = _active_modes(study)
-    return RiskEvent.create(
+    event = RiskEvent.create(
         study=study,
         mode=mode,
         action=action,
@@ -111,7 +113,7 @@ def record_event(
         **_ratings_columns("after", after),
         study_total_rpn=study.total_rpn,
         study_max_rpn=active.select(pw.fn.MAX(FailureMode.rpn)).scalar() or 0,
-        study_needs_action_count=active.where(needs_action_condition(study)).count(),
+        study_needs_action_count=_needs_action_count_after(study, kind, previous, before, after, active),
         study_revision=study.risk_revision,
         study_open_actions=CorrectiveAction.select()
         .where((CorrectiveAction.study == study) & CorrectiveAction.unfinished())
@@ -120,6 +122,23 @@ def record_event(
         rating_raised=rating_raised,
         **sums,
     )
+    # Queued in the change's own transaction: a change that rolls back sends no webhook.
+    webhooks.enqueue_risk_event(
+        event_view(event), event_view(previous) if previous else None, action.status if action is not None else None
+    )
+    return event
+
+
+def _needs_action_count_after(study, kind, previous, before, after, active):
+    """Moved by the one mode that changed, so the cost does not grow with the study; recounted on a new policy."""
+    if previous is None or kind == "policy_changed":
+        return active.where(needs_action_condition(study)).count()
+    policy = RiskPolicy(study.action_threshold, study.severity_threshold)
+
+    def needs(ratings):
+        return int(ratings is not None and bool(needs_action_reasons(ratings, policy)))
+
+    return previous.study_needs_action_count + needs(after) - needs(before)
 
 
 def _ratings_columns(prefix, ratings):

@@ -1,6 +1,8 @@
 """Risk history: the study's state at each interval end, change by cause, per-mode series, as-of state."""
 
+import collections
 import datetime
+import threading
 import zoneinfo
 from dataclasses import dataclass
 
@@ -9,7 +11,7 @@ import peewee as pw
 from abate.domain.clock import utcnow
 from abate.domain.events import CAUSES
 from abate.errors import ValidationFailed, field_error
-from abate.models import RiskEvent
+from abate.models import CorrectiveAction, RiskEvent
 
 INTERVALS = ("day", "week", "month")
 # Kinds that change a mode's ratings or take it out of the study.
@@ -97,16 +99,17 @@ def point_instants(periods_, now):
 def state_before(study, instant):
     """The study's latest event strictly before instant (None if there is none): one indexed lookup."""
     return (
-        RiskEvent.select()
+        RiskEvent.select(
+            RiskEvent.study_total_rpn,
+            RiskEvent.study_max_rpn,
+            RiskEvent.study_needs_action_count,
+            RiskEvent.study_open_actions,
+            *(getattr(RiskEvent, cause) for cause in CAUSES),
+        )
         .where((RiskEvent.study == study) & (RiskEvent.occurred_at < instant))
         .order_by(RiskEvent.occurred_at.desc(), RiskEvent.study_revision.desc())
         .first()
     )
-
-
-def _lookup_instant(instant, now):
-    # An interval end is the next interval's first instant; "now" includes what happened at now.
-    return instant + _TICK if instant == now else instant
 
 
 def figures_of(event):
@@ -130,6 +133,7 @@ class ActionSweep:
             RiskEvent.select(RiskEvent.action, RiskEvent.kind, RiskEvent.occurred_at, RiskEvent.action_due_date)
             .where((RiskEvent.study == study) & RiskEvent.action.is_null(False))
             .order_by(RiskEvent.study_revision)
+            .namedtuples()
         )
         self.position = 0
         self.due_of_unfinished = {}
@@ -139,9 +143,9 @@ class ActionSweep:
         while self.position < len(self.events) and self.events[self.position].occurred_at < instant:
             event = self.events[self.position]
             if event.kind in UNFINISHED_AFTER:
-                self.due_of_unfinished[event.action_id] = event.action_due_date
+                self.due_of_unfinished[event.action] = event.action_due_date
             else:
-                self.due_of_unfinished.pop(event.action_id, None)
+                self.due_of_unfinished.pop(event.action, None)
             self.position += 1
         return sum(1 for due in self.due_of_unfinished.values() if due < local_day)
 
@@ -172,32 +176,82 @@ def mode_series(study, mode_ids, lookups):
     return series
 
 
+def _point(period, instant, now, figures, sums, previous_sums):
+    return {
+        "at": instant,
+        "period": period.label,
+        "in_progress": instant == now,
+        **figures,
+        "change": {cause.removeprefix("change_"): sums[cause] - previous_sums[cause] for cause in CAUSES},
+    }
+
+
+def _completed_points(study, completed):
+    """Points of periods that have ended, each with the running sums it ended on."""
+    sweep = ActionSweep(study)
+    _, previous_sums = figures_of(state_before(study, completed[0][0].start_utc))
+    points = []
+    for period, instant in completed:
+        figures, sums = figures_of(state_before(study, instant))
+        figures["overdue_actions"] = sweep.overdue_before(instant, to_local_date(instant, study.timezone))
+        points.append((_point(period, instant, None, figures, sums, previous_sums), sums))
+        previous_sums = sums
+    return points
+
+
+_completed_cache = collections.OrderedDict()
+_cache_lock = threading.Lock()
+_CACHE_ENTRIES = 256
+
+
+def _cached_completed_points(study, completed):
+    """Ended periods cannot change without a new event, so the study's revision keys them."""
+    key = (study.id, study.risk_revision, tuple((period.label, period.end_utc) for period, _ in completed))
+    with _cache_lock:
+        if key in _completed_cache:
+            _completed_cache.move_to_end(key)
+            return _completed_cache[key]
+    points = _completed_points(study, completed)
+    with _cache_lock:
+        _completed_cache[key] = points
+        while len(_completed_cache) > _CACHE_ENTRIES:
+            _completed_cache.popitem(last=False)
+    return points
+
+
+def overdue_now(study, now):
+    """Unfinished actions of the study due before today in its time zone (from the actions themselves)."""
+    today = to_local_date(now, study.timezone)
+    return (
+        CorrectiveAction.select()
+        .where((CorrectiveAction.study == study) & CorrectiveAction.unfinished() & (CorrectiveAction.due_date < today))
+        .count()
+    )
+
+
 def history_points(study, periods_, now=None):
     """One point per period begun (the one in progress stamped now), with change by cause since the last.
 
     Returns (points, lookups): lookups are the instants the points describe the state just before.
     """
     now = now or utcnow()
-    sweep = ActionSweep(study)
-    points, lookups = [], []
-    if not periods_:
-        return points, lookups
-    _, previous_sums = figures_of(state_before(study, periods_[0].start_utc))
-    for period, instant in point_instants(periods_, now):
-        lookup = _lookup_instant(instant, now)
-        figures, sums = figures_of(state_before(study, lookup))
-        figures["overdue_actions"] = sweep.overdue_before(lookup, to_local_date(instant, study.timezone))
-        points.append(
-            {
-                "at": instant,
-                "period": period.label,
-                "in_progress": instant == now,
-                **figures,
-                "change": {cause.removeprefix("change_"): sums[cause] - previous_sums[cause] for cause in CAUSES},
-            }
-        )
-        lookups.append(lookup)
-        previous_sums = sums
+    pairs = point_instants(periods_, now)
+    if not pairs:
+        return [], []
+    completed = [(period, instant) for period, instant in pairs if instant < now]
+    done = _cached_completed_points(study, completed) if completed else []
+    points = [dict(point, change=dict(point["change"])) for point, _ in done]
+    lookups = [instant for _, instant in completed]
+    if len(pairs) > len(completed):
+        period, _ = pairs[-1]
+        if done:
+            previous_sums = done[-1][1]
+        else:
+            previous_sums = figures_of(state_before(study, period.start_utc))[1]
+        figures, sums = figures_of(state_before(study, now + _TICK))
+        figures["overdue_actions"] = overdue_now(study, now)
+        points.append(_point(period, now, now, figures, sums, previous_sums))
+        lookups.append(now + _TICK)
     return points, lookups
 
 

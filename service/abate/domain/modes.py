@@ -4,6 +4,7 @@ from abate.db import database
 from abate.domain import events as risk_events
 from abate.domain.clock import utcnow
 from abate.domain.history import as_of_lookup, ratings_as_of
+from abate.domain.references import reference_view, set_reference
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings, assess, projected_ratings
 from abate.domain.studies import get_study, policy_of, require_open_for_changes
@@ -66,6 +67,7 @@ def create_mode(study_id, data, *, actor, source, reason=""):
             **{name: data[name] for name in TEXT_FIELDS if name in data},
         )
         apply_ratings(mode, ratings)
+        set_reference(mode, data.get("external_ref"))
         mode.initial_severity, mode.initial_occurrence, mode.initial_detection = (
             ratings.severity,
             ratings.occurrence,
@@ -112,6 +114,8 @@ def update_mode(mode_id, changes, *, actor, source, expected_tags=None):
         for name in TEXT_FIELDS:
             if name in changes:
                 setattr(mode, name, changes[name])
+        if "external_ref" in changes:
+            set_reference(mode, changes["external_ref"])
         apply_ratings(mode, after)
         save_new_version(mode)
         if after != before:
@@ -211,6 +215,7 @@ def mode_views(modes, study=None):
                 "needs_action_reasons": list(assessment.reasons),
                 "priority": assessment.priority,
                 "status": mode.status,
+                "external_ref": reference_view(mode),
                 "version": mode.version,
                 "created_at": mode.created_at,
                 "updated_at": mode.updated_at,

@@ -7,6 +7,7 @@ import peewee as pw
 from abate.db import database
 from abate.domain import events as risk_events
 from abate.domain.clock import local_today
+from abate.domain.references import reference_view, save_referenced, set_reference
 from abate.domain.scales import get_scale_set
 from abate.domain.scoring import Ratings, RiskPolicy, assess, projected_ratings
 from abate.domain.versions import check_precondition, save_new_version, study_tag
@@ -84,8 +85,9 @@ def create_study(data):
         severity_threshold=data.get("severity_threshold") or scale_set.default_severity_threshold,
     )
     _check_policy(study, scale_set)
+    set_reference(study, data.get("external_ref"))
     with database.atomic():
-        study.save()
+        save_referenced(study)
         _set_tags(study, data.get("tags", []))
     return study
 
@@ -125,6 +127,8 @@ def update_study(study_id, changes, *, actor, source, expected_tags=None):
         _check_policy(study, study.scale_set)
         if "tags" in changes:
             _set_tags(study, changes["tags"])
+        if "external_ref" in changes:
+            set_reference(study, changes["external_ref"])
         save_new_version(study)
         if policy_of(study) != old_policy:
             reason = (
@@ -306,6 +310,7 @@ def study_views(studies, with_pareto=False):
                 "tags": tags[study.id],
                 "owner": {"name": study.owner_name, "email": study.owner_email},
                 "scale_id": study.scale_set_id,
+                "external_ref": reference_view(study),
                 "status": study.status,
                 "action_threshold": study.action_threshold,
                 "severity_threshold": study.severity_threshold,

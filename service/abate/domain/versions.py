@@ -1,7 +1,7 @@
 """Entity tags and optimistic concurrency: a write names the representation it was based on."""
 
 from abate.domain.clock import local_today, utcnow
-from abate.errors import PreconditionFailed
+from abate.errors import PreconditionFailed, PreconditionRequired
 
 
 def scale_set_tag(scale_set):
@@ -31,10 +31,17 @@ def save_new_version(row, at=None):
     row.save()
 
 
-def check_precondition(current_tag, expected_tags):
-    """Raise PreconditionFailed unless expected_tags is None (no If-Match) or holds current_tag.
+# Passed as expected_tags when a request had to carry If-Match and did not.
+IF_MATCH_MISSING = frozenset({"<missing>"})
 
-    The comparison is of whole strong tags (RFC 9110 section 13.1.1).
+
+def check_precondition(current_tag, expected_tags):
+    """Raise PreconditionFailed unless expected_tags is None (no condition) or holds current_tag.
+
+    The comparison is of whole strong tags (RFC 9110 section 13.1.1); IF_MATCH_MISSING raises
+    PreconditionRequired once the resource is known to exist.
     """
+    if expected_tags is IF_MATCH_MISSING:
+        raise PreconditionRequired("send If-Match with the ETag of the resource as you read it, so no update is lost")
     if expected_tags is not None and current_tag not in expected_tags:
         raise PreconditionFailed("the resource has changed since the ETag your If-Match names; read it again and retry")

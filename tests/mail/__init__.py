@@ -1,0 +1,1 @@
+"""Reminder e-mails: digests, delivery, the outbox API and the scheduler."""
