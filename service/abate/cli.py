@@ -2,6 +2,7 @@
 
 import contextlib
 import json
+import signal
 from pathlib import Path
 
 import click
@@ -57,6 +58,7 @@ def serve(app, host, port, threads, no_scheduler):
     webhook_worker = WebhookWorker(app.config)
     webhook_worker.start()
     click.echo(f"Abate serving on http://{host}:{port}/v1/ (OpenAPI: http://{host}:{port}/v1/openapi.json)")
+    _stop_on_signals()
     try:
         waitress.serve(app, host=host, port=port, threads=threads, ident="abate")
     finally:
@@ -83,14 +85,28 @@ def scheduler_command(app):
     # Each run logs what it recorded and sent; this process has no other output.
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
     click.echo(_schedule_line(app.config))
+    _stop_on_signals()
     webhook_worker = WebhookWorker(app.config)
-    webhook_worker.start()
     try:
+        webhook_worker.start()
         build_scheduler(app.config, BlockingScheduler).start()
     except (KeyboardInterrupt, SystemExit):
         click.echo("scheduler stopped")
     finally:
         webhook_worker.stop(timeout=WORKER_STOP_SECONDS)
+
+
+def _stop_on_signals():
+    """SIGTERM (a service manager) and SIGINT (Ctrl-C) end a long-running command cleanly.
+
+    Set explicitly: a process started in the background of a shell may inherit SIGINT ignored.
+    """
+
+    def stop(signum, frame):
+        raise SystemExit(0)
+
+    for signum in (signal.SIGTERM, signal.SIGINT):
+        signal.signal(signum, stop)
 
 
 @main.command("remind")

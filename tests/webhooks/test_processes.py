@@ -41,8 +41,8 @@ def _start(tmp_path, *args):
 
 
 def _stop(process):
-    """Interrupt the process as Ctrl-C would and return its output."""
-    process.send_signal(signal.SIGINT)
+    """Stop the process as a service manager would and return its output."""
+    process.send_signal(signal.SIGTERM)
     try:
         return process.communicate(timeout=20)
     except subprocess.TimeoutExpired:

@@ -55,7 +55,7 @@ def require_token():
         raise Unauthorized("send Authorization: Bearer <token>; the token is missing, unknown or revoked")
     needed = required_role(request.blueprint, request.method, request.get_json(silent=True))
     if RANK[token.role] < RANK[needed]:
-        raise Forbidden(f"a {token.role} token may not do this; it needs the {needed} role")
+        raise Forbidden(f"this token has the {token.role} role; this request needs the {needed} role")
     g.token = token
 
 

@@ -229,6 +229,7 @@ def cancel_action(action_id, reason, *, actor, source, expected_tags=None):
         study, action = _locked_action(action_id)
         check_precondition(action_tag(action, study), expected_tags)
         _require_status(action, UNFINISHED, "cancelled")
+        require_open_for_changes(study)
         action.status = "cancelled"
         action.cancelled_at = utcnow()
         save_new_version(action, action.cancelled_at)
