@@ -20,7 +20,7 @@ SETTINGS = {
     "REMINDER_TIMEZONE": ("UTC", "IANA time zone of REMINDER_TIME; the digest's day is the date there."),
     "REMINDER_DUE_SOON_DAYS": (7, "A digest lists the actions due within this many days (today included)."),
     "ESCALATION_DAYS": (14, "An action overdue by more than this many days also goes to its study's owner."),
-    "REMINDER_SKIP_WEEKENDS": (False, "true: record no digests on Saturdays and Sundays (pending mail still goes out)."),
+    "REMINDER_SKIP_WEEKENDS": (False, "true: record no digests on Saturdays and Sundays (pending mail still goes)."),
     "SMTP_HOST": ("", "SMTP server for reminders; empty: mail goes into the Maildir instead."),
     "SMTP_PORT": (587, "SMTP server port."),
     "SMTP_USER": ("", "SMTP login name; empty: no login."),

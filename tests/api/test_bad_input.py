@@ -648,3 +648,46 @@ def test_invalid_owner_email_is_422_on_create_and_on_change(client, study):
     changed = client.patch(f"/v1/studies/{study['id']}", json={"owner": {"email": "rhea@"}})
     assert error_fields(assert_problem(changed, 422)) == {("json", "owner.email")}
     assert study_record(client, study["id"]) == before
+
+
+@pytest.mark.parametrize(
+    ("method", "path", "body"),
+    [
+        ("get", "/v1/studies?tag=%00", None),
+        ("get", "/v1/actions/by-ref/tickets/a%00b", None),
+        ("post", "/v1/tokens", {"name": "a\u0000", "role": "reader"}),
+        ("post", "/v1/tokens", {"name": "a\ud800", "role": "reader"}),
+    ],
+    ids=["nul-in-query", "nul-in-path", "nul-in-json", "lone-surrogate-in-json"],
+)
+def test_text_no_database_stores_alike_is_422_and_stores_nothing(client, method, path, body):
+    """NUL (PostgreSQL refuses it) and unpaired surrogates (not UTF-8) are refused on every database."""
+    before = client.get("/v1/tokens").get_json()["items"]
+    body_text = None if body is None else json.dumps(body)  # json.dumps escapes the surrogate as \\ud800
+    response = getattr(client, method)(path, data=body_text, content_type="application/json" if body else None)
+    problem = assert_problem(response, 422, "urn:abate:problem:validation-failed")
+    assert problem["errors"][0]["message"] == "NUL or an unpaired surrogate"
+    assert client.get("/v1/tokens").get_json()["items"] == before
+
+
+@pytest.mark.parametrize(
+    "query",
+    ["?from=0001-01-01", "?from=9999-12-01&to=9999-12-31&interval=month", "?to=9001-01-01"],
+)
+def test_history_dates_outside_the_calendar_the_service_reasons_about_are_422(client, study, query):
+    assert_problem(client.get(f"/v1/studies/{study['id']}/history{query}"), 422)
+
+
+def test_an_as_of_or_due_date_at_the_end_of_the_calendar_is_422(client, study, mode):
+    assert_problem(client.get(f"/v1/studies/{study['id']}?as_of=9999-12-31"), 422)
+    response = client.post(
+        f"/v1/modes/{mode['id']}/actions",
+        json={
+            "title": "t",
+            "kind": "prevention",
+            "owner": {"name": "o", "email": "o@example.com"},
+            "due_date": "9999-12-31",
+        },
+    )
+    assert_problem(response, 422)
+    assert client.get(f"/v1/studies/{study['id']}/history").status_code == 200

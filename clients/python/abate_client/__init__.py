@@ -13,15 +13,20 @@ from abate_client.errors import (
 )
 from abate_client.models import (
     Action,
+    Delivery,
+    DeliveryAttempt,
     HistoryPoint,
     Mode,
     PortfolioHistory,
     Ratings,
+    Reminder,
+    ReminderRun,
     RiskEvent,
     RiskSummary,
     ScaleSet,
     Study,
     StudyHistory,
+    Webhook,
 )
 from abate_client.webhooks import WebhookSignatureError, verify_signature
 
@@ -30,6 +35,8 @@ __all__ = [
     "Action",
     "Client",
     "Conflict",
+    "Delivery",
+    "DeliveryAttempt",
     "Forbidden",
     "HistoryPoint",
     "Mode",
@@ -37,6 +44,8 @@ __all__ = [
     "PortfolioHistory",
     "PreconditionFailed",
     "Ratings",
+    "Reminder",
+    "ReminderRun",
     "RiskEvent",
     "RiskSummary",
     "ScaleSet",
@@ -45,6 +54,7 @@ __all__ = [
     "TransportError",
     "Unauthorized",
     "ValidationFailed",
+    "Webhook",
     "WebhookSignatureError",
     "verify_signature",
 ]

@@ -1,22 +1,43 @@
 """The Abate client: one requests.Session, a timeout on every call, a resource group per collection."""
 
 import datetime
-from urllib.parse import urlsplit, urlunsplit
+import time
+import uuid
+from urllib.parse import quote, urlsplit, urlunsplit
 
 import requests
 
 from abate_client.errors import AbateError, TransportError, error_for
-from abate_client.models import Action, Mode, PortfolioHistory, RiskEvent, ScaleSet, Study, StudyHistory
+from abate_client.models import (
+    Action,
+    Delivery,
+    Mode,
+    PortfolioHistory,
+    Reminder,
+    ReminderRun,
+    RiskEvent,
+    ScaleSet,
+    Study,
+    StudyHistory,
+    Webhook,
+)
 
 DEFAULT_TIMEOUT = 10.0
+DEFAULT_RETRIES = 3
+RETRY_STATUSES = frozenset({429, 503})
+# The first wait when the server gives no Retry-After; it doubles with each retry.
+BACKOFF_SECONDS = 0.25
+# A Retry-After longer than this is cut short, so that no call hangs for minutes.
+MAX_RETRY_WAIT = 30.0
 
 
 class Client:
     """A connection to one Abate server; use it as a context manager or call close()."""
 
-    def __init__(self, base_url, token=None, timeout=DEFAULT_TIMEOUT, session=None):
+    def __init__(self, base_url, token=None, timeout=DEFAULT_TIMEOUT, session=None, retries=DEFAULT_RETRIES):
         self.base_url = base_url.rstrip("/")
         self.timeout = timeout
+        self.retries = retries
         self._token = token
         self._session = session if session is not None else requests.Session()
         self._owns_session = session is None
@@ -26,6 +47,8 @@ class Client:
         self.events = Events(self)
         self.actions = Actions(self)
         self.history = History(self)
+        self.reminders = Reminders(self)
+        self.webhooks = Webhooks(self)
 
     def __enter__(self):
         return self
@@ -38,9 +61,12 @@ class Client:
         if self._owns_session:
             self._session.close()
 
-    def request(self, method, path, *, params=None, json=None, if_match=None):
+    def request(self, method, path, *, params=None, json=None, if_match=None, idempotency_key=None):
         """Send one request to a path under base_url (or a full URL, re-rooted there); return the response.
 
+        A POST carries an Idempotency-Key (a new uuid4 unless given), the same on each retry, so the
+        server applies it once. Connection errors (except on PATCH, which If-Match guards instead),
+        429 and 503 are retried up to `retries` times, after Retry-After seconds or a doubling backoff.
         Error statuses raise their AbateError subclass and transport failures raise TransportError.
         """
         headers = {"Accept": "application/json, application/problem+json"}
@@ -48,12 +74,25 @@ class Client:
             headers["Authorization"] = f"Bearer {self._token}"
         if if_match:
             headers["If-Match"] = if_match
-        try:
-            response = self._session.request(
-                method, self._url(path), params=params, json=_encoded(json), headers=headers, timeout=self.timeout
-            )
-        except requests.RequestException as error:
-            raise TransportError(f"{method} {path} failed: {error}") from error
+        if method == "POST":
+            headers["Idempotency-Key"] = idempotency_key or str(uuid.uuid4())
+        body = _encoded(json)
+        for attempt in range(self.retries + 1):
+            last = attempt == self.retries
+            try:
+                response = self._session.request(
+                    method, self._url(path), params=params, json=body, headers=headers, timeout=self.timeout
+                )
+            except requests.ConnectionError as error:
+                if last or method == "PATCH":
+                    raise TransportError(f"{method} {path} failed: {error}") from error
+                time.sleep(_backoff(attempt))
+                continue
+            except requests.RequestException as error:
+                raise TransportError(f"{method} {path} failed: {error}") from error
+            if response.status_code not in RETRY_STATUSES or last:
+                break
+            time.sleep(_retry_after(response) or _backoff(attempt))
         if response.status_code >= 400:
             raise error_for(response)
         return response
@@ -69,6 +108,19 @@ class Client:
         if target.scheme:
             return urlunsplit((base.scheme, base.netloc, target.path, target.query, ""))
         return self.base_url + path
+
+
+def _backoff(attempt):
+    """The wait before retry number attempt + 1 when the server names none."""
+    return BACKOFF_SECONDS * 2**attempt
+
+
+def _retry_after(response):
+    """Retry-After in seconds (capped), or None when absent or an HTTP-date, which is not honoured."""
+    try:
+        return min(max(float(response.headers["Retry-After"]), 0.0), MAX_RETRY_WAIT)
+    except (KeyError, ValueError):
+        return None
 
 
 def _encoded(value):
@@ -243,9 +295,26 @@ class Actions(_Resources):
         """Cancel an unfinished action as read; the mode's ratings stay."""
         return self._finish(action, "cancel", reason)
 
+    def get_by_ref(self, system, key):
+        """The action carrying this reference in another system (e.g. a ticket's key)."""
+        return self._one(Action, "GET", _by_ref(system, key))
+
+    def put_by_ref(self, system, key, **fields):
+        """Create the action carrying this reference (fields name mode_id, title, kind, owner, due_date), or change it."""
+        return self._one(Action, "PUT", _by_ref(system, key), json=fields)
+
+    def close_by_ref(self, system, key, evidence, result=None, **fields):
+        """Close the action carrying this reference with its evidence and verified result ratings."""
+        body = {"evidence": evidence, "result": result or {}, **fields}
+        return self._one(Action, "POST", _by_ref(system, key) + "/close", json=body)
+
     def _finish(self, action, verb, reason):
         body = {"reason": reason}
         return self._one(Action, "POST", f"/v1/actions/{action.id}/{verb}", json=body, if_match=_etag_of(action))
+
+
+def _by_ref(system, key):
+    return f"/v1/actions/by-ref/{quote(system, safe='')}/{quote(key, safe='')}"
 
 
 class History(_Resources):
@@ -263,3 +332,47 @@ class History(_Resources):
         """Totals summed over the studies matching the filters (tag, site, kind, status, owner_email, timezone)."""
         params = _query({"interval": interval, "from": from_, "to": to, **filters}, None)
         return PortfolioHistory.from_json(_json(self._client.request("GET", "/v1/history", params=params)))
+
+
+class Reminders(_Resources):
+    """/v1/reminders: the reminder e-mail outbox and running the reminder job now (admin)."""
+
+    def list(self, *, status=None, page_size=None):
+        """Outbox rows, oldest first; status is pending, sent or failed."""
+        return self._every(Reminder, "/v1/reminders", {"status": status}, page_size)
+
+    def run(self, *, dry_run=False):
+        """Run the reminder job now; with dry_run, report what it would record and send and change nothing."""
+        response = self._client.request("POST", "/v1/reminders/run", params=_query({"dry_run": dry_run}, None))
+        return ReminderRun.from_json(_json(response))
+
+
+class Webhooks(_Resources):
+    """/v1/webhooks: subscriptions to signed event notifications and their deliveries (admin)."""
+
+    def create(self, url, events, **fields):
+        """Subscribe url to event types; the result's `secret` (whsec_...) is shown this once."""
+        return self._one(Webhook, "POST", "/v1/webhooks", json={"url": url, "events": list(events), **fields})
+
+    def list(self, *, page_size=None):
+        """Every subscription, oldest first, without secrets."""
+        return self._every(Webhook, "/v1/webhooks", {}, page_size)
+
+    def get(self, subscription_id):
+        """The subscription with this id."""
+        return self._one(Webhook, "GET", f"/v1/webhooks/{int(subscription_id)}")
+
+    def update(self, subscription, **changes):
+        """Change events, description or active of a subscription as read (If-Match its ETag)."""
+        path = f"/v1/webhooks/{subscription.id}"
+        return self._one(Webhook, "PATCH", path, json=changes, if_match=_etag_of(subscription))
+
+    def deliveries(self, subscription_id, *, status=None, page_size=None):
+        """A subscription's deliveries, newest first, each with its attempts; status filters them."""
+        path = f"/v1/webhooks/{int(subscription_id)}/deliveries"
+        return self._every(Delivery, path, {"status": status}, page_size)
+
+    def redeliver(self, delivery_id):
+        """Queue a delivered, failed or disabled delivery again, with the same webhook-id and payload."""
+        response = self._client.request("POST", f"/v1/webhooks/deliveries/{int(delivery_id)}/redeliver")
+        return Delivery.from_json(_json(response))

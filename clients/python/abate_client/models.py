@@ -257,3 +257,116 @@ class PortfolioHistory(_FromJson):
     study_ids: list[int]
     points: list[HistoryPoint]
     caution: str
+
+
+@dataclasses.dataclass(frozen=True)
+class Reminder(_FromJson):
+    """One digest e-mail of the outbox; a run's report leaves out what the outbox has not decided yet."""
+
+    converters: ClassVar[dict] = {
+        "day": _date,
+        "next_attempt_at": _timestamp,
+        "sent_at": _timestamp,
+        "created_at": _timestamp,
+    }
+
+    dedup_key: str
+    recipient: str
+    day: datetime.date
+    overdue: int
+    due_soon: int
+    escalated: int
+    id: int | None = None
+    status: str | None = None
+    attempts: int | None = None
+    last_error: str | None = None
+    next_attempt_at: datetime.datetime | None = None
+    sent_at: datetime.datetime | None = None
+    created_at: datetime.datetime | None = None
+
+
+def _reminders(values):
+    return [Reminder.from_json(value) for value in values]
+
+
+@dataclasses.dataclass(frozen=True)
+class ReminderRun(_FromJson):
+    """What one run of the reminder job did (with dry_run: would do); skipped is weekend, busy or None."""
+
+    converters: ClassVar[dict] = {
+        "day": _date,
+        "recorded": _reminders,
+        "sent": _reminders,
+        "retrying": _reminders,
+        "failed": _reminders,
+    }
+
+    day: datetime.date
+    dry_run: bool
+    skipped: str | None
+    recorded: list[Reminder]
+    sent: list[Reminder]
+    retrying: list[Reminder]
+    failed: list[Reminder]
+
+
+@dataclasses.dataclass(frozen=True)
+class Webhook(_FromJson):
+    """A webhook subscription; `secret` is set only on the object that create() returned."""
+
+    converters: ClassVar[dict] = _TIMESTAMPS
+
+    id: int
+    url: str
+    events: list[str]
+    description: str
+    active: bool
+    disabled_reason: str
+    version: int
+    created_at: datetime.datetime
+    updated_at: datetime.datetime
+    secret: str | None = None
+    etag: str | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class DeliveryAttempt(_FromJson):
+    """One HTTP attempt at a delivery; status_code is None when no answer came."""
+
+    converters: ClassVar[dict] = {"attempted_at": _timestamp}
+
+    attempted_at: datetime.datetime
+    status_code: int | None
+    error: str
+    response_excerpt: str
+    duration_ms: int
+
+
+def _attempts(values):
+    return [DeliveryAttempt.from_json(value) for value in values]
+
+
+@dataclasses.dataclass(frozen=True)
+class Delivery(_FromJson):
+    """One event for one subscription: its fixed payload, its stable webhook_id and every attempt."""
+
+    converters: ClassVar[dict] = {
+        "next_attempt_at": _timestamp,
+        "delivered_at": _timestamp,
+        "created_at": _timestamp,
+        "attempts": _attempts,
+    }
+
+    id: int
+    subscription_id: int
+    webhook_id: str
+    event_type: str
+    status: str
+    attempt_count: int
+    next_attempt_at: datetime.datetime | None
+    last_status_code: int | None
+    last_error: str
+    delivered_at: datetime.datetime | None
+    created_at: datetime.datetime
+    payload: dict[str, Any]
+    attempts: list[DeliveryAttempt]

@@ -10,7 +10,7 @@ from flask_smorest.utils import prepare_response
 from werkzeug.exceptions import InternalServerError, UnsupportedMediaType
 
 from abate.api.common import MAX_ID, BoundedIntegerConverter
-from abate.errors import PROBLEM_MEDIA_TYPE, AbateError, problem_document
+from abate.errors import PROBLEM_MEDIA_TYPE, AbateError, ValidationFailed, field_error, problem_document
 
 log = logging.getLogger(__name__)
 
@@ -130,6 +130,40 @@ def _require_json_body():
         raise UnsupportedMediaType(f"send the body as application/json, not {request.mimetype or 'untyped'}")
 
 
+def _unstorable_strings(value, location, path=""):
+    """(location, field) of every string holding NUL or a lone surrogate, which no database stores alike."""
+    if isinstance(value, dict):
+        for key, item in value.items():
+            yield from _unstorable_strings(key, location, path)
+            yield from _unstorable_strings(item, location, f"{path}.{key}" if path else str(key))
+    elif isinstance(value, list):
+        for index, item in enumerate(value):
+            yield from _unstorable_strings(item, location, f"{path}.{index}" if path else str(index))
+    elif isinstance(value, str):
+        try:
+            value.encode("utf-8")
+        except UnicodeEncodeError:
+            yield location, path
+            return
+        if "\x00" in value:
+            yield location, path
+
+
+def _refuse_unstorable_text():
+    """422 for text PostgreSQL cannot hold (NUL) or UTF-8 cannot encode, on every database alike."""
+    found = [
+        *_unstorable_strings(request.view_args or {}, "path"),
+        *_unstorable_strings(request.args.to_dict(flat=False), "query"),
+    ]
+    if request.method in BODY_METHODS and request.is_json:
+        found += _unstorable_strings(request.get_json(silent=True), "json")
+    if found:
+        raise ValidationFailed(
+            "text may not contain NUL characters or unpaired surrogates",
+            errors=[field_error(field, "NUL or an unpaired surrogate", location) for location, field in found],
+        )
+
+
 def init_app(app):
     """Create the Api for app, register every resource's blueprint and the request checks."""
     from abate.api import (
@@ -173,6 +207,7 @@ def init_app(app):
         api.register_blueprint(module.blp)
     app.before_request(require_token)
     app.before_request(_require_json_body)
+    app.before_request(_refuse_unstorable_text)
     app.before_request(idempotency.start)
     app.after_request(idempotency.finish)
     app.teardown_request(idempotency.abandon)

@@ -6,6 +6,7 @@ from flask_smorest import Blueprint
 
 from abate.api.auth import current_actor
 from abate.api.common import (
+    DATE_RANGE,
     IF_MATCH_PARAMETER,
     REQUEST_SOURCE,
     ExternalRefSchema,
@@ -54,11 +55,11 @@ class ActionSchema(ma.Schema):
         },
     )
     owner = ma.fields.Nested(OwnerSchema, required=True)
-    due_date = ma.fields.Date(required=True)
+    due_date = ma.fields.Date(required=True, validate=DATE_RANGE)
     original_due_date = ma.fields.Date(dump_only=True)
     due_date_changes = ma.fields.Integer(dump_only=True, metadata={"description": "How often the due date moved"})
     status = ma.fields.String(
-        validate=ma.validate.OneOf(actions.UNFINISHED),
+        validate=ma.validate.OneOf(actions.ACTION_STATUSES),
         metadata={"description": "open, in_progress, closed or cancelled (close and cancel have their own operations)"},
     )
     overdue = ma.fields.Boolean(
@@ -220,6 +221,7 @@ class ActionClosure(MethodView):
     @blp.arguments(CloseSchema)
     @blp.response(200, ActionSchema)
     @blp.alt_response(409, description="Already closed or cancelled, or effective_at precedes the latest event")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def post(self, data, action_id):
         """Close: the action closes and its mode is re-rated to the result, in one transaction."""
@@ -236,6 +238,7 @@ class ActionReopening(MethodView):
     @blp.arguments(ReasonSchema)
     @blp.response(200, ActionSchema)
     @blp.alt_response(409, description="The action is not closed")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def post(self, data, action_id):
         """Reopen: the ratings the closure changed go back to their values before it."""
@@ -252,6 +255,7 @@ class ActionCancellation(MethodView):
     @blp.arguments(ReasonSchema)
     @blp.response(200, ActionSchema)
     @blp.alt_response(409, description="The action is closed or cancelled")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def post(self, data, action_id):
         """Cancel: the action is dropped and the ratings stay."""
@@ -290,6 +294,7 @@ class ActionByReference(MethodView):
     @blp.response(200, ActionSchema)
     @blp.alt_response(201, schema=ActionSchema, description="Created: no action carried the reference")
     @blp.alt_response(409, description="The action is closed or cancelled")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def put(self, data, system, key):
         """Create the action with this reference, or change it (If-Match optional)."""

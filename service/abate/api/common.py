@@ -35,6 +35,11 @@ def Rating(**kwargs):  # noqa: N802
     return ma.fields.Integer(strict=True, validate=ma.validate.Range(min=1, max=10), **kwargs)
 
 
+# Dates the service reasons about; outside them calendar arithmetic (DST, ISO weeks) has no meaning here.
+FIRST_DATE, LAST_DATE = datetime.date(1900, 1, 1), datetime.date(9000, 12, 31)
+DATE_RANGE = ma.validate.Range(min=FIRST_DATE, max=LAST_DATE, error="must lie between 1900-01-01 and 9000-12-31")
+
+
 class UTCDateTime(ma.fields.DateTime):
     """An RFC 3339 timestamp in UTC with a Z suffix; the database keeps naive UTC."""
 
@@ -47,7 +52,9 @@ class UTCDateTime(ma.fields.DateTime):
         parsed = super()._deserialize(value, attr, data, **kwargs)
         if parsed.tzinfo is None:
             raise self.make_error("invalid", input=value, obj_type="datetime with a time zone offset")
-        return parsed.astimezone(datetime.UTC).replace(tzinfo=None)
+        utc = parsed.astimezone(datetime.UTC).replace(tzinfo=None)
+        DATE_RANGE(utc.date())
+        return utc
 
 
 class AsOf(ma.fields.Field):
@@ -56,9 +63,11 @@ class AsOf(ma.fields.Field):
     def _deserialize(self, value, attr, data, **kwargs):
         if isinstance(value, str) and len(value) == 10:
             try:
-                return datetime.date.fromisoformat(value)
+                day = datetime.date.fromisoformat(value)
             except ValueError:
                 pass
+            else:
+                return DATE_RANGE(day)
         return UTCDateTime()._deserialize(value, attr, data, **kwargs)
 
     def _jsonschema_type_mapping(self):

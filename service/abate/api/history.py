@@ -5,7 +5,7 @@ from flask import Response
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
-from abate.api.common import UTCDateTime
+from abate.api.common import DATE_RANGE, UTCDateTime
 from abate.domain import charts, history
 from abate.domain.clock import local_today
 from abate.domain.projection import projection
@@ -26,8 +26,10 @@ class RangeArgsSchema(ma.Schema):
     """An interval and a date range."""
 
     interval = _INTERVAL
-    from_ = ma.fields.Date(data_key="from", metadata={"description": "First local date (default: the first event)"})
-    to = ma.fields.Date(metadata={"description": "Last local date (default: today)"})
+    from_ = ma.fields.Date(
+        data_key="from", validate=DATE_RANGE, metadata={"description": "First local date (default: the first event)"}
+    )
+    to = ma.fields.Date(validate=DATE_RANGE, metadata={"description": "Last local date (default: today)"})
 
 
 class HistoryArgsSchema(RangeArgsSchema):

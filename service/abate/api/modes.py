@@ -178,6 +178,7 @@ class ModeRetirement(MethodView):
     @blp.arguments(ReasonSchema)
     @blp.response(200, ModeSchema)
     @blp.alt_response(409, description="Already retired, or the study is archived")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def post(self, data, mode_id):
         """Retire a mode (a retirement event, not a risk reduction)."""

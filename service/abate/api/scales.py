@@ -102,6 +102,7 @@ class ScaleSetById(MethodView):
     @blp.arguments(ScaleSetSchema)
     @blp.response(200, ScaleSetSchema)
     @blp.alt_response(409, description="Built in or used by a study; create a new scale set instead")
+    @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def put(self, data, scale_id):
         """Replace a scale set that no study uses yet."""

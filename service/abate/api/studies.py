@@ -242,6 +242,7 @@ class StudyById(MethodView):
 
     @blp.arguments(StudyPatchSchema)
     @blp.response(200, StudySchema)
+    @blp.alt_response(409, description="Invalid status change, or a scale change for a study with modes")
     @blp.alt_response(412, description="If-Match names an older version; nothing changed")
     @blp.doc(parameters=[IF_MATCH_PARAMETER])
     def patch(self, changes, study_id):

@@ -39,6 +39,10 @@ def _set_target(action, target):
 
 def create_action(mode_id, data, *, actor, source):
     """Open a corrective action on an active mode."""
+    if data.get("status", "open") not in UNFINISHED:
+        raise ValidationFailed(
+            "a new action is open or in progress", errors=[field_error("status", "open or in_progress")]
+        )
     with database.atomic():
         study, mode = locked_active_mode(mode_id)
         check_ratings(study.scale_set, {key: value for key, value in (data.get("target") or {}).items() if value})
