@@ -14,13 +14,12 @@ from urllib.parse import quote
 import peewee
 import requests
 from flask import Flask
-from waitress import wasyncore
-from waitress.server import create_server
 
 from abate import create_app, db
 from abate.domain.scales import find_scale_set_by_name
 from abate.domain.studies import create_study
 from abate.domain.tokens import create_token
+from abate.serving import served_in_thread
 
 # Both servers of a comparison run with these, so that only the application differs.
 SERVER_SETTINGS = {"host": "127.0.0.1", "port": 0, "threads": 8, "ident": "abate-benchmark"}
@@ -144,16 +143,8 @@ def served(app):
     """Serve app with waitress (SERVER_SETTINGS) in a thread; yield its base URL."""
     # Under a deliberate load every worker is busy; waitress would warn about its queue on each request.
     logging.getLogger("waitress.queue").setLevel(logging.ERROR)
-    server = create_server(app, **SERVER_SETTINGS)
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{server.effective_port}"
-    finally:
-        # Workers finish first, then the server's own loop closes the sockets (as tests/conftest.py does).
-        server.task_dispatcher.shutdown()
-        server.trigger.pull_trigger(lambda: wasyncore.close_all(server._map))
-        thread.join(timeout=5)
+    with served_in_thread(app, **SERVER_SETTINGS) as url:
+        yield url
 
 
 def _get_ok(session, url):

@@ -1,7 +1,6 @@
 """Shared fixtures: a real database per test (SQLite file or a PostgreSQL schema), the app, clients."""
 
 import os
-import threading
 import uuid
 from urllib.parse import quote
 
@@ -9,6 +8,7 @@ import pytest
 from flask.testing import FlaskClient
 
 from abate import create_app, db
+from abate.serving import served_in_thread
 
 POSTGRES_URL = os.environ.get("ABATE_TEST_POSTGRES_URL", "postgresql://postgres@127.0.0.1:5432/test")
 REQUIRE_POSTGRES = os.environ.get("ABATE_TEST_REQUIRE_POSTGRES") == "1"
@@ -167,18 +167,8 @@ def connection(app):
 @pytest.fixture
 def live_server(app):
     """The app served by waitress on a free loopback port; yields its base URL."""
-    from waitress import wasyncore
-    from waitress.server import create_server
-
-    server = create_server(app, host="127.0.0.1", port=0, threads=8, ident="abate-test")
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{server.effective_port}"
-    # Let the worker threads finish, then close the sockets from the server's own loop thread,
-    # so that neither a worker nor select() ever touches a closed one.
-    server.task_dispatcher.shutdown()
-    server.trigger.pull_trigger(lambda: wasyncore.close_all(server._map))
-    thread.join(timeout=5)
+    with served_in_thread(app, threads=8, ident="abate-test") as url:
+        yield url
 
 
 HEAD_SCHEMA_VERSION = max(version for version, _, _ in db.available_migrations())

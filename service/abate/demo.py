@@ -1,12 +1,11 @@
 """The invented demo scenario, replayed in time order through the thin client with back-dated effective_at."""
 
-import contextlib
 import datetime
-import threading
 
 from abate import db
 from abate.domain.tokens import create_token, revoke_token
 from abate.models import Study
+from abate.serving import served_in_thread
 
 DEMO_TOKEN_NAME = "demo loader"
 # Dated steps of one day go out from this time (UTC) on, a few minutes apart, in the file's order.
@@ -110,24 +109,6 @@ def load_scenario(api, scenario, today=None):
     return loaded, skipped
 
 
-@contextlib.contextmanager
-def _served(app):
-    """app served by waitress on a free loopback port in a thread; yields its base URL."""
-    from waitress import wasyncore
-    from waitress.server import create_server
-
-    server = create_server(app, host="127.0.0.1", port=0, threads=4, ident="abate-demo")
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{server.effective_port}"
-    finally:
-        # Workers finish first, then the server's own loop closes its sockets.
-        server.task_dispatcher.shutdown()
-        server.trigger.pull_trigger(lambda: wasyncore.close_all(server._map))
-        thread.join(timeout=5)
-
-
 def load_in_process(app, scenario):
     """Load the scenario into app's database through the client and a loopback server; return (loaded, skipped).
 
@@ -143,7 +124,7 @@ def load_in_process(app, scenario):
             return [], titles
         token, secret = create_token(DEMO_TOKEN_NAME, "admin")
     try:
-        with _served(app) as base_url, Client(base_url, token=secret, timeout=30) as api:
+        with served_in_thread(app, ident="abate-demo") as base_url, Client(base_url, token=secret, timeout=30) as api:
             return load_scenario(api, scenario)
     finally:
         with db.database.connection_context():
