@@ -19,5 +19,9 @@ def served_in_thread(app, host="127.0.0.1", port=0, threads=4, **settings):
         # Workers finish first, then the server's own loop closes its sockets, so that neither a
         # worker nor select() ever touches a closed one.
         server.task_dispatcher.shutdown()
-        server.trigger.pull_trigger(lambda: wasyncore.close_all(server._map))
+        try:
+            server.trigger.pull_trigger(lambda: wasyncore.close_all(server._map))
+        except OSError:
+            # The loop has already closed its trigger; close whatever is left from here.
+            wasyncore.close_all(server._map)
         thread.join(timeout=5)
