@@ -85,10 +85,10 @@ def fresh_database(database_url=None):
 
 
 @contextlib.contextmanager
-def abate_app(database_url):
-    """The Abate application on database_url, migrated; its connections are closed on the way out."""
+def abate_app(database_url, **settings):
+    """The Abate application on database_url with settings, migrated; its connections are closed on the way out."""
     with tempfile.TemporaryDirectory(prefix="abate-instance-") as instance:
-        app = create_app({"DATABASE_URL": database_url, "INSTANCE_PATH": instance})
+        app = create_app({"DATABASE_URL": database_url, "INSTANCE_PATH": instance, **settings})
         with db.database.connection_context():
             db.upgrade()
         try:

@@ -194,8 +194,11 @@ class MaildirPostman:
         message = _compose_reminder(reminder, self._sender)
         try:
             if self._maildir is None:
-                self._path.parent.mkdir(parents=True, exist_ok=True)
-                self._maildir = mailbox.Maildir(self._path, create=True)
+                # mailbox.Maildir creates its subfolders only with the folder itself; an empty folder set up
+                # by an operator (or a temporary one) would otherwise fail every delivery.
+                for subfolder in ("tmp", "new", "cur"):
+                    (self._path / subfolder).mkdir(parents=True, exist_ok=True)
+                self._maildir = mailbox.Maildir(self._path, create=False)
             self._maildir.add(message)
         except OSError as error:
             raise DeliveryFailed(f"{type(error).__name__}: {error}") from error

@@ -211,6 +211,8 @@ class CorrectiveAction(BaseModel):
         table_name = "corrective_action"
         indexes = (
             (("study", "status", "due_date"), False),
+            # The reminder run looks across studies for unfinished actions due soon.
+            (("status", "due_date"), False),
             (("mode", "status"), False),
             (("external_system", "external_key"), True),
         )

@@ -202,6 +202,18 @@ def test_without_an_smtp_host_mail_goes_into_the_maildir(open_action, run_at, sm
     assert all("days overdue" in message.get_body(("plain",)).get_content() for message in messages)
 
 
+def test_an_empty_existing_folder_serves_as_the_maildir(open_action, run_at, mail_app, tmp_path):
+    folder = tmp_path / "prepared"
+    folder.mkdir()
+    mail_app.config.update(SMTP_HOST="", MAILDIR=str(folder))
+    _two_overdue_owners(open_action)
+
+    report = run_at(MORNING)
+
+    assert [item["recipient"] for item in report.sent] == [KAI, LENA] and report.retrying == []
+    assert len(mailbox.Maildir(folder, create=False)) == 2
+
+
 def test_the_default_maildir_lies_under_the_instance_folder(mail_app):
     mail_app.config.update(SMTP_HOST="", MAILDIR=None)
     assert mail.maildir_path(mail_app.config) == Path(mail_app.config["INSTANCE_PATH"]) / "maildir"

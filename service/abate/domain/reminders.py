@@ -206,6 +206,9 @@ def record_digests(digests, day, now):
 
 def _announce_overdue(digests, day, now):
     """Queue action.overdue webhooks once per action and day, with the digests that list them."""
+    subscriptions = webhooks.active_subscriptions()
+    if not subscriptions:
+        return
     announced = set()
     for digest in digests:
         for line in digest.overdue:
@@ -216,6 +219,7 @@ def _announce_overdue(digests, day, now):
                     {key: line[key] for key in ("action_id", "study_id", "title", "due_date", "days_overdue", "rpn")},
                     occurred_at=now,
                     dedup_key=f"action.overdue:{line['action_id']}:{day.isoformat()}",
+                    subscriptions=subscriptions,
                 )
 
 

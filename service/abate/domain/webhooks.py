@@ -286,7 +286,8 @@ def _enqueue(subscriptions, event_type, data, occurred_at, message_id):
     WebhookDelivery.insert_many(rows).on_conflict_ignore().execute()
 
 
-def _active_subscriptions():
+def active_subscriptions():
+    """The subscriptions that receive events now."""
     return list(WebhookSubscription.select().where(WebhookSubscription.active))
 
 
@@ -297,14 +298,17 @@ def _message_id(dedup_key=None):
     return "msg_" + hashlib.sha256(dedup_key.encode()).hexdigest()[:32]
 
 
-def enqueue_event(event_type, data, *, occurred_at=None, dedup_key=None):
+def enqueue_event(event_type, data, *, occurred_at=None, dedup_key=None, subscriptions=None):
     """Queue one event for every active subscription to its type, inside the caller's transaction.
 
     data is the payload's `data` object; a second call with the same dedup_key queues nothing.
+    A caller queueing many events passes the active subscriptions it read once.
     """
     if event_type not in EVENT_TYPES:
         raise ValueError(f"unknown webhook event type {event_type!r}")
-    _enqueue(_active_subscriptions(), event_type, data, occurred_at or utcnow(), _message_id(dedup_key))
+    if subscriptions is None:
+        subscriptions = active_subscriptions()
+    _enqueue(subscriptions, event_type, data, occurred_at or utcnow(), _message_id(dedup_key))
 
 
 def risk_event_types(event, previous):
@@ -320,7 +324,7 @@ def risk_event_types(event, previous):
 
 def enqueue_risk_event(event, previous, action_status=None):
     """Queue the webhooks of a risk event just recorded; event and previous are event views."""
-    subscriptions = _active_subscriptions()
+    subscriptions = active_subscriptions()
     if not subscriptions:
         return
     data = {
