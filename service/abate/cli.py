@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from abate import create_app, db
+from abate import backup, create_app, db
 
 DEFAULT_DEMO_FILE = Path("demo") / "scenario.json"
 # How long stopping waits for a webhook attempt in flight; an abandoned one is retried after its lease.
@@ -149,6 +149,35 @@ def db_upgrade(app):
     for number, name in applied:
         click.echo(f"applied migration {number:04d} {name}")
     click.echo(f"schema at version {version}")
+
+
+@db_group.command("backup")
+@click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
+@click.pass_obj
+def db_backup(app, path):
+    """Write a backup of the database to PATH (SQLite: online backup API; PostgreSQL: pg_dump)."""
+    try:
+        command = backup.backup(app.config["DATABASE_URL"], path)
+    except backup.BackupRefused as refusal:
+        raise click.ClickException(str(refusal)) from refusal
+    if command:
+        click.echo(" ".join(command))
+    click.echo(f"backup written to {path}")
+
+
+@db_group.command("restore")
+@click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--force", is_flag=True, help="Overwrite a database that already holds tables.")
+@click.pass_obj
+def db_restore(app, path, force):
+    """Restore the backup at PATH into the configured database (empty unless --force)."""
+    try:
+        command = backup.restore(app.config["DATABASE_URL"], path, force=force)
+    except backup.BackupRefused as refusal:
+        raise click.ClickException(str(refusal)) from refusal
+    if command:
+        click.echo(" ".join(command))
+    click.echo(f"restored {path}")
 
 
 @main.group("token")

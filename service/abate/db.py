@@ -8,7 +8,7 @@ from urllib.parse import parse_qsl, unquote, urlsplit
 import peewee
 from flask import request
 from playhouse.migrate import SchemaMigrator
-from playhouse.pool import PooledPostgresqlDatabase
+from playhouse.pool import PooledPostgresqlDatabase, PooledSqliteDatabase
 
 from abate.domain.clock import utcnow
 
@@ -31,15 +31,21 @@ def open_database(url, config):
         path = unquote(parts.path[1:]) if parts.path.startswith("/") else unquote(parts.path)
         Path(path).parent.mkdir(parents=True, exist_ok=True)
         busy_seconds = int(config["SQLITE_BUSY_TIMEOUT"])
-        return peewee.SqliteDatabase(
+        # Pooled like PostgreSQL: opening a file and setting its pragmas on every request costs more than
+        # many a request itself.
+        return PooledSqliteDatabase(
             path,
+            max_connections=int(config["DB_POOL_SIZE"]),
+            timeout=int(config["DB_POOL_TIMEOUT"]),
+            stale_timeout=300,
+            # A pooled connection serves one thread at a time, but not always the thread that opened it.
+            check_same_thread=False,
             pragmas={
                 "journal_mode": "wal",
                 "foreign_keys": 1,
                 "busy_timeout": busy_seconds * 1000,
                 "synchronous": "normal",
             },
-            timeout=busy_seconds,
             # A deferred transaction that reads and then writes can fail with "database is
             # locked" despite busy_timeout; taking the write lock at BEGIN makes writers queue.
             lock_type="IMMEDIATE",

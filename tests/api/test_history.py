@@ -290,6 +290,38 @@ def test_the_projection_drops_after_each_due_date_and_names_the_day_nothing_need
     assert _read(client, f"/v1/studies/{study['id']}/history", interval=interval)["projection"]["done_date"] is None
 
 
+def test_a_new_target_moves_the_projection_and_is_recorded_as_a_change_of_plan(client):
+    study = make_study(client, **POLICY)
+    weld = make_mode(client, study["id"], 7, 8, 5)  # 280
+    action = _open_action(client, weld["id"], _today() + datetime.timedelta(days=3), {"occurrence": 6})
+    path = f"/v1/studies/{study['id']}/history"
+    assert _read(client, path)["projection"]["points"][-1]["total_rpn"] == 7 * 6 * 5
+    changed = client.patch(f"/v1/actions/{action['id']}", json={"target": {"occurrence": 4, "detection": 4}})
+    assert changed.status_code == 200, changed.get_json()
+
+    assert _read(client, path)["projection"]["points"][-1]["total_rpn"] == 7 * 4 * 4
+    updates = _read(client, f"/v1/studies/{study['id']}/events", kind="action_updated")["items"]
+    assert [event["reason"] for event in updates] == ["target O6 -> O4 D4"]
+    assert _risk(client, study["id"])["total_rpn"] == 280  # a plan moves no rating
+
+
+def test_each_read_stamps_the_point_in_progress_and_the_projection_start_anew(client):
+    study = make_study(client, **POLICY)
+    make_mode(client, study["id"], 7, 8, 5)
+    path = f"/v1/studies/{study['id']}/history"
+    first, second = _read(client, path), _read(client, path)
+    assert first["points"][-1]["in_progress"] and second["points"][-1]["in_progress"]
+    assert second["points"][-1]["at"] > first["points"][-1]["at"]
+    assert second["projection"]["points"][0]["at"] == second["points"][-1]["at"]
+    assert {**second, "points": second["points"][:-1], "projection": None} == {
+        **first,
+        "points": first["points"][:-1],
+        "projection": None,
+    }
+    make_mode(client, study["id"], 5, 5, 5)  # a new event: the next read is computed afresh
+    assert _read(client, path)["points"][-1]["total_rpn"] == 280 + 125
+
+
 def test_as_of_a_moment_equals_what_was_observed_then(client):
     study = make_study(client, **POLICY)
     study_id, snapshots = study["id"], []

@@ -6,7 +6,9 @@ from abate.config import load_config
 
 
 def test_environment_overrides_defaults_and_test_config_overrides_both():
-    config = load_config({"BASE_URL": "http://test"}, environ={"ABATE_BASE_URL": "http://env", "ABATE_DB_POOL_SIZE": "3"})
+    config = load_config(
+        {"BASE_URL": "http://test"}, environ={"ABATE_BASE_URL": "http://env", "ABATE_DB_POOL_SIZE": "3"}
+    )
     assert config["BASE_URL"] == "http://test" and config["DB_POOL_SIZE"] == 3
 
 

@@ -1,13 +1,14 @@
 """/v1/studies/{id}/history and /v1/history: how risk fell over time, and where it is heading."""
 
 import marshmallow as ma
-from flask import Response
+from flask import Response, jsonify
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
 from abate.api.common import DATE_RANGE, UTCDateTime
 from abate.domain import charts, history
-from abate.domain.clock import local_today
+from abate.domain.caching import BoundedCache
+from abate.domain.clock import local_today, utcnow
 from abate.domain.projection import projection
 from abate.domain.studies import CAUTION, check_timezone, get_study, studies_query
 from abate.errors import ValidationFailed, field_error
@@ -143,14 +144,13 @@ def _mode_ids(value, study):
     return ids
 
 
-def study_history(study_id, args):
-    """The whole history document of one study (shared by the JSON and chart views)."""
-    study = get_study(study_id)
+def study_history(study, args, now):
+    """The whole history document of one study at now (shared by the JSON and chart views)."""
     first = args.get("from_") or history.first_event_day(study)
-    last = args.get("to") or local_today(study.timezone)
+    last = args.get("to") or local_today(study.timezone, now)
     periods_ = history.periods(first, last, args["interval"], study.timezone)
     history.check_point_count(periods_)
-    points, lookups = history.history_points(study, periods_)
+    points, lookups = history.history_points(study, periods_, now)
     wanted = _mode_ids(args.get("modes"), study)
     series = []
     if wanted != ():
@@ -171,9 +171,44 @@ def study_history(study_id, args):
         "timezone": study.timezone,
         "points": points,
         "modes": series,
-        "projection": projection(study, args["interval"]),
+        "projection": projection(study, args["interval"], now),
         "caution": CAUTION,
     }
+
+
+# Dumped documents without mode series. A study's revision moves with every event and its version with
+# every change of its own fields, so they, the arguments and the local day decide the whole document but
+# for the two instants stamped now.
+_dumped_documents = BoundedCache()
+_NOW_FIELD = UTCDateTime()
+
+
+def _document_key(study, args, now):
+    window = (args["interval"], args.get("from_"), args.get("to"))
+    return (history.revision_key(study), study.version, window, local_today(study.timezone, now))
+
+
+def _stamped(dumped, now):
+    """A copy of a dumped document whose in-progress point and projection start are stamped now."""
+    stamp = _NOW_FIELD.serialize("at", {"at": now})
+    points = list(dumped["points"])
+    if points and points[-1]["in_progress"]:
+        points[-1] = {**points[-1], "at": stamp}
+    future = dumped["projection"]["points"]
+    projected = {**dumped["projection"], "points": [{**future[0], "at": stamp}, *future[1:]]}
+    return {**dumped, "points": points, "projection": projected}
+
+
+def history_response(study_id, args):
+    """The history document; without mode series it is dumped once per revision and day, then re-stamped."""
+    study = get_study(study_id)
+    now = utcnow()
+    if args.get("modes"):
+        return study_history(study, args, now)
+    dumped = _dumped_documents.get_or_compute(
+        _document_key(study, args, now), lambda: StudyHistorySchema().dump(study_history(study, args, now))
+    )
+    return jsonify(_stamped(dumped, now))
 
 
 @blp.route("/studies/<int:study_id>/history")
@@ -184,7 +219,7 @@ class StudyHistory(MethodView):
     @blp.response(200, StudyHistorySchema)
     def get(self, args, study_id):
         """Totals at each interval end in the study's time zone, change by cause, projection."""
-        return study_history(study_id, args)
+        return history_response(study_id, args)
 
 
 @blp.route("/history")
@@ -217,9 +252,10 @@ class PortfolioHistory(MethodView):
 
 def chart_response(study_id, args, image_format):
     """The burn-down chart of a study's history over the requested range, as an image response."""
-    document = study_history(study_id, args)
+    study = get_study(study_id)
+    document = study_history(study, args, utcnow())
     closures = charts.closure_instants(document, args.get("from_"))
-    image = charts.burn_down_chart(document, get_study(study_id).title, closures, image_format)
+    image = charts.burn_down_chart(document, study.title, closures, image_format)
     return Response(image, mimetype=charts.MEDIA_TYPES[image_format])
 
 

@@ -108,6 +108,7 @@ def update_action(action_id, changes, *, actor, source, expected_tags=None):
         require_open_for_changes(study)
         if "status" in changes and changes["status"] not in UNFINISHED:
             raise InvalidTransition("use the close or cancel operation to finish an action")
+        tracked_before = _tracked(action)
         if "target" in changes:
             check_ratings(study.scale_set, {key: value for key, value in (changes["target"] or {}).items() if value})
             _set_target(action, changes["target"])
@@ -119,13 +120,13 @@ def update_action(action_id, changes, *, actor, source, expected_tags=None):
         if "owner" in changes:
             action.owner_name = changes["owner"].get("name", action.owner_name)
             action.owner_email = changes["owner"].get("email", action.owner_email)
-        tracked_before = (action.due_date, action.status)
         if "due_date" in changes and changes["due_date"] != action.due_date:
             action.due_date = changes["due_date"]
             action.due_date_changes += 1
         action.status = changes.get("status", action.status)
         save_new_version(action)
-        if (action.due_date, action.status) != tracked_before:
+        # Due date, status and target feed the open-action counts and the projection: each move is an event.
+        if _tracked(action) != tracked_before:
             reason = changes.get("reason", "") or _describe_change(tracked_before, action)
             risk_events.record_event(
                 study, "action_updated", mode=action.mode, action=action, actor=actor, source=source, reason=reason
@@ -133,13 +134,25 @@ def update_action(action_id, changes, *, actor, source, expected_tags=None):
     return action
 
 
+def _tracked(action):
+    """What of an action the risk record follows: its due date, status and target ratings."""
+    return action.due_date, action.status, _target_text(action)
+
+
+def _target_text(action):
+    values = {name: getattr(action, f"target_{name}") for name in RATING_DIMENSIONS}
+    return " ".join(f"{name[0].upper()}{value}" for name, value in values.items() if value is not None) or "none"
+
+
 def _describe_change(tracked_before, action):
-    due_before, status_before = tracked_before
+    due_before, status_before, target_before = tracked_before
     parts = []
     if action.due_date != due_before:
         parts.append(f"due date {due_before.isoformat()} -> {action.due_date.isoformat()}")
     if action.status != status_before:
         parts.append(f"status {status_before} -> {action.status}")
+    if _target_text(action) != target_before:
+        parts.append(f"target {target_before} -> {_target_text(action)}")
     return "; ".join(parts)
 
 

@@ -1,13 +1,12 @@
 """Risk history: the study's state at each interval end, change by cause, per-mode series, as-of state."""
 
-import collections
 import datetime
-import threading
 import zoneinfo
 from dataclasses import dataclass
 
 import peewee as pw
 
+from abate.domain.caching import BoundedCache
 from abate.domain.clock import utcnow
 from abate.domain.events import CAUSES
 from abate.errors import ValidationFailed, field_error
@@ -201,24 +200,19 @@ def _completed_points(study, completed):
     return points
 
 
-_completed_cache = collections.OrderedDict()
-_cache_lock = threading.Lock()
-_CACHE_ENTRIES = 256
+_completed_points_cache = BoundedCache()
+
+
+def revision_key(study):
+    """What names one state of a study's risk record; the creation instant tells apart a study that
+    reuses an id (in another database of the same process, or after a deletion)."""
+    return study.id, study.created_at, study.risk_revision
 
 
 def _cached_completed_points(study, completed):
     """Ended periods cannot change without a new event, so the study's revision keys them."""
-    key = (study.id, study.risk_revision, tuple((period.label, period.end_utc) for period, _ in completed))
-    with _cache_lock:
-        if key in _completed_cache:
-            _completed_cache.move_to_end(key)
-            return _completed_cache[key]
-    points = _completed_points(study, completed)
-    with _cache_lock:
-        _completed_cache[key] = points
-        while len(_completed_cache) > _CACHE_ENTRIES:
-            _completed_cache.popitem(last=False)
-    return points
+    key = (revision_key(study), tuple((period.label, period.end_utc) for period, _ in completed))
+    return _completed_points_cache.get_or_compute(key, lambda: _completed_points(study, completed))
 
 
 def overdue_now(study, now):
