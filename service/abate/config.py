@@ -13,6 +13,10 @@ SETTINGS = {
     "BASE_URL": ("http://127.0.0.1:8000", "Public base URL of the service, used in links."),
     "INSTANCE_PATH": ("instance", "Folder for the default SQLite file and local mail."),
     "MAX_BODY_BYTES": (1_048_576, "Largest accepted request body in bytes (413 above it)."),
+    "RATE_LIMIT_PER_MINUTE": (
+        6000,
+        "Requests a minute one API token may send to one service process (429 with Retry-After above); 0: no limit.",
+    ),
     "DB_POOL_SIZE": (10, "Database connections kept per service process."),
     "DB_POOL_TIMEOUT": (10, "Seconds to wait for a free pooled database connection."),
     "SQLITE_BUSY_TIMEOUT": (15, "SQLite: seconds a writer waits for the write lock."),

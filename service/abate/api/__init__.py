@@ -173,6 +173,7 @@ def init_app(app):
         idempotency,
         modes,
         owners,
+        ratelimit,
         reminders,
         scales,
         studies,
@@ -206,6 +207,7 @@ def init_app(app):
     for module in (health, scales, studies, modes, actions, history, tokens, reminders, owners, webhooks, transfer):
         api.register_blueprint(module.blp)
     app.before_request(require_token)
+    ratelimit.init_app(app)
     app.before_request(_require_json_body)
     app.before_request(_refuse_unstorable_text)
     app.before_request(idempotency.start)
