@@ -35,7 +35,8 @@ def assert_problem(response, status, problem_type="about:blank"):
     assert body["status"] == status
     assert isinstance(body["title"], str) and body["title"]
     assert isinstance(body.get("detail", ""), str)
-    assert body.get("instance", response.request.path) == response.request.path
+    # RFC 9457 section 3.1.5: instance names this occurrence; it is the request id the response echoes.
+    assert body["instance"] == f"urn:abate:request:{response.headers['X-Request-Id']}"
     if status in (400, 422):
         assert body["errors"], "a 400 or 422 names what was wrong"
         for entry in body["errors"]:

@@ -20,16 +20,10 @@ from abate_client import (
     Unauthorized,
     ValidationFailed,
 )
+from client.conftest import new_mode, new_study
 from conftest import BUILTIN_1_5, BUILTIN_1_10
 
 CLIENT_DIR = Path(__file__).resolve().parents[2] / "clients" / "python"
-
-
-@pytest.fixture
-def api(live_server, admin_token):
-    """A client of the live server with an admin token."""
-    with Client(live_server, token=admin_token) as client:
-        yield client
 
 
 @pytest.fixture
@@ -39,26 +33,6 @@ def recording_session():
         session.sent = []
         session.hooks["response"].append(lambda response, **kwargs: session.sent.append(response.request))
         yield session
-
-
-def new_study(api, scale=BUILTIN_1_10, **fields):
-    """Create a study on the named built-in scale set through the client."""
-    scale_id = next(scale_set.id for scale_set in api.scales.list() if scale_set.name == scale)
-    body = {
-        "title": "Client study",
-        "kind": "process",
-        "owner": {"name": "Q. Owner", "email": "q.owner@example.com"},
-        "scale_id": scale_id,
-        "timezone": "Europe/Berlin",
-        **fields,
-    }
-    return api.studies.create(**body)
-
-
-def new_mode(api, study, severity, occurrence, detection, **fields):
-    """Add a failure mode with these ratings through the client."""
-    ratings = {"severity": severity, "occurrence": occurrence, "detection": detection}
-    return api.modes.create(study.id, **{"failure_mode": "Burr on the edge", **ratings, **fields})
 
 
 def test_created_study_and_mode_read_back_with_their_scores_and_etags(api):

@@ -16,17 +16,8 @@ from abate_client import (
     StudyHistory,
     ValidationFailed,
 )
+from client.conftest import OWNER, TODAY, open_action
 from conftest import BUILTIN_1_10
-
-OWNER = {"name": "Kai Berg", "email": "kai.berg@example.com"}
-TODAY = datetime.date.today()
-
-
-@pytest.fixture
-def api(live_server, admin_token):
-    """A client of the live server with an admin token."""
-    with Client(live_server, token=admin_token) as client:
-        yield client
 
 
 def weld_mode(api, severity=7, occurrence=8, detection=5, **fields):
@@ -49,17 +40,6 @@ def weld_mode(api, severity=7, occurrence=8, detection=5, **fields):
         **fields,
     )
     return study, mode
-
-
-def open_action(api, mode, **fields):
-    """An open prevention action on the mode, due in a month unless fields say otherwise."""
-    body = {
-        "title": "Wire feed monitor",
-        "kind": "prevention",
-        "owner": OWNER,
-        "due_date": TODAY + datetime.timedelta(30),
-    }
-    return api.actions.create(mode.id, **{**body, **fields})
 
 
 def test_an_action_is_created_with_a_date_due_and_read_back_with_its_etag(api):

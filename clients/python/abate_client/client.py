@@ -1,6 +1,7 @@
 """The Abate client: one requests.Session, a timeout on every call, a resource group per collection."""
 
 import datetime
+import email.utils
 import time
 import uuid
 from urllib.parse import quote, urlsplit, urlunsplit
@@ -86,16 +87,21 @@ class Client:
             except requests.ConnectionError as error:
                 if last or method == "PATCH":
                     raise TransportError(f"{method} {path} failed: {error}") from error
-                time.sleep(_backoff(attempt))
+                self.wait_before_retry(_backoff(attempt))
                 continue
             except requests.RequestException as error:
                 raise TransportError(f"{method} {path} failed: {error}") from error
             if response.status_code not in RETRY_STATUSES or last:
                 break
-            time.sleep(_retry_after(response) or _backoff(attempt))
+            delay = _retry_after(response)
+            self.wait_before_retry(_backoff(attempt) if delay is None else delay)
         if response.status_code >= 400:
             raise error_for(response)
         return response
+
+    def wait_before_retry(self, seconds):
+        """Pause before the next attempt; a subclass may override it, e.g. to log the wait or to record it."""
+        time.sleep(seconds)
 
     def _url(self, path):
         """The URL of path, or of a full URL's path and query, on base_url's origin.
@@ -116,11 +122,23 @@ def _backoff(attempt):
 
 
 def _retry_after(response):
-    """Retry-After in seconds (capped), or None when absent or an HTTP-date, which is not honoured."""
-    try:
-        return min(max(float(response.headers["Retry-After"]), 0.0), MAX_RETRY_WAIT)
-    except (KeyError, ValueError):
-        return None
+    """Retry-After as seconds from now (capped, at least 0), or None when absent or unreadable.
+
+    RFC 9110, section 10.2.3: the value is either delay-seconds (digits) or an HTTP-date.
+    """
+    value = response.headers.get("Retry-After", "").strip()
+    if value.isdigit():
+        seconds = float(value)
+    else:
+        try:
+            moment = email.utils.parsedate_to_datetime(value)
+        except (TypeError, ValueError):
+            return None
+        if moment.tzinfo is None:
+            # "-0000" means UTC with no zone stated (RFC 5322, section 3.3); HTTP-dates are GMT anyway.
+            moment = moment.replace(tzinfo=datetime.UTC)
+        seconds = (moment - datetime.datetime.now(datetime.UTC)).total_seconds()
+    return min(max(seconds, 0.0), MAX_RETRY_WAIT)
 
 
 def _encoded(value):
@@ -299,14 +317,24 @@ class Actions(_Resources):
         """The action carrying this reference in another system (e.g. a ticket's key)."""
         return self._one(Action, "GET", _by_ref(system, key))
 
-    def put_by_ref(self, system, key, **fields):
-        """Create the action carrying this reference (fields name mode_id, title, kind, owner, due_date), or change it."""
-        return self._one(Action, "PUT", _by_ref(system, key), json=fields)
+    def put_by_ref(self, system, key, *, current=None, **fields):
+        """Create the action with this reference, or change it; creating needs mode_id, title, kind, owner, due_date.
 
-    def close_by_ref(self, system, key, evidence, result=None, **fields):
-        """Close the action carrying this reference with its evidence and verified result ratings."""
+        current, the action as last read, sends its ETag as If-Match, so that a change made since is
+        PreconditionFailed instead of overwritten.
+        """
+        if_match = None if current is None else _etag_of(current)
+        return self._one(Action, "PUT", _by_ref(system, key), json=fields, if_match=if_match)
+
+    def close_by_ref(self, system, key, evidence, result=None, *, current=None, **fields):
+        """Close the action carrying this reference with its evidence and verified result ratings.
+
+        The action's state guards the closure (Conflict when it is already finished); current, the
+        action as last read, adds If-Match as in put_by_ref.
+        """
         body = {"evidence": evidence, "result": result or {}, **fields}
-        return self._one(Action, "POST", _by_ref(system, key) + "/close", json=body)
+        if_match = None if current is None else _etag_of(current)
+        return self._one(Action, "POST", _by_ref(system, key) + "/close", json=body, if_match=if_match)
 
     def _finish(self, action, verb, reason):
         body = {"reason": reason}

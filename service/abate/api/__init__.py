@@ -10,6 +10,7 @@ from flask_smorest.utils import prepare_response
 from werkzeug.exceptions import InternalServerError, UnsupportedMediaType
 
 from abate.api.common import MAX_ID, BoundedIntegerConverter
+from abate.api.requestid import problem_instance
 from abate.errors import PROBLEM_MEDIA_TYPE, AbateError, ValidationFailed, field_error, problem_document
 
 log = logging.getLogger(__name__)
@@ -65,10 +66,12 @@ class AbateApi(Api):
         """Answer any HTTP error (including unhandled exceptions as 500) with problem details."""
         if isinstance(error, InternalServerError) and error.original_exception is not None:
             log.error("unhandled error", exc_info=error.original_exception)
-            return problem_response(problem_document(500, "an unexpected error occurred; it has been logged"), 500)
+            return problem_response(
+                problem_document(500, "an unexpected error occurred; it has been logged", problem_instance()), 500
+            )
         data = getattr(error, "data", None) or {}
         detail = "the request failed validation; see errors" if "messages" in data else error.description
-        body = problem_document(error.code, detail, request.path)
+        body = problem_document(error.code, detail, problem_instance())
         if "messages" in data:
             body["errors"] = flatten_messages(data["messages"])
         headers = [(key, value) for key, value in error.get_headers() if key.lower() != "content-type"]
@@ -84,20 +87,20 @@ def problem_response(body, status, headers=()):
 
 
 def _domain_problem(error):
-    return problem_response(error.problem(request.path), error.status, error.headers)
+    return problem_response(error.problem(problem_instance()), error.status, error.headers)
 
 
 def _integrity_conflict(error):
     # A unique index decided a race that the domain's own checks could not see coming.
     body = problem_document(
-        409, "the change collides with another write (a unique key is taken); read and retry", request.path
+        409, "the change collides with another write (a unique key is taken); read and retry", problem_instance()
     )
     return problem_response(body, 409)
 
 
 def _database_unavailable(error):
     log.warning("database unavailable: %s", error)
-    body = problem_document(503, "the database is unavailable or busy; retry shortly", request.path)
+    body = problem_document(503, "the database is unavailable or busy; retry shortly", problem_instance())
     return problem_response(body, 503, {"Retry-After": "2"})
 
 
@@ -175,6 +178,7 @@ def init_app(app):
         owners,
         ratelimit,
         reminders,
+        requestid,
         scales,
         studies,
         tokens,
@@ -206,6 +210,7 @@ def init_app(app):
     )
     for module in (health, scales, studies, modes, actions, history, tokens, reminders, owners, webhooks, transfer):
         api.register_blueprint(module.blp)
+    requestid.init_app(app)
     app.before_request(require_token)
     ratelimit.init_app(app)
     app.before_request(_require_json_body)
