@@ -67,7 +67,7 @@ class Client:
 
         A POST carries an Idempotency-Key (a new uuid4 unless given), the same on each retry, so the
         server applies it once. Connection errors (except on PATCH, which If-Match guards instead),
-        429 and 503 are retried up to `retries` times, after Retry-After seconds or a doubling backoff.
+        429 and 503 are retried up to `retries` times, after what Retry-After says or a doubling backoff.
         Error statuses raise their AbateError subclass and transport failures raise TransportError.
         """
         headers = {"Accept": "application/json, application/problem+json"}
@@ -127,7 +127,7 @@ def _retry_after(response):
     RFC 9110, section 10.2.3: the value is either delay-seconds (digits) or an HTTP-date.
     """
     value = response.headers.get("Retry-After", "").strip()
-    if value.isdigit():
+    if value.isascii() and value.isdigit():
         seconds = float(value)
     else:
         try:
@@ -342,7 +342,14 @@ class Actions(_Resources):
 
 
 def _by_ref(system, key):
-    return f"/v1/actions/by-ref/{quote(system, safe='')}/{quote(key, safe='')}"
+    """The path of the action carrying system/key, each one path segment whatever characters it holds."""
+    return f"/v1/actions/by-ref/{_segment(system)}/{_segment(key)}"
+
+
+def _segment(text):
+    """text as one percent-encoded path segment; "." and ".." too, which URL normalising would remove."""
+    quoted = quote(text, safe="")
+    return quoted.replace(".", "%2E") if quoted in (".", "..") else quoted
 
 
 class History(_Resources):
