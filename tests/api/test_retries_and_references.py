@@ -146,6 +146,23 @@ def test_external_references_are_unique_per_system_for_studies_and_modes(client)
     assert second.status_code == 409
 
 
+def test_a_reference_with_a_slash_is_422_because_no_by_ref_path_could_reach_it(client):
+    study = make_study(client)
+    mode = make_mode(client, study["id"])
+    body = {
+        "title": "Check the seal",
+        "kind": "detection",
+        "owner": {"name": "Ida Brandt", "email": "ida.brandt@example.com"},
+        "due_date": "2030-01-15",
+    }
+    for ref in ({"system": "tickets", "key": "PROJ/42"}, {"system": "a/b", "key": "42"}):
+        refused = client.post(f"/v1/modes/{mode['id']}/actions", json={**body, "external_ref": ref})
+        assert refused.status_code == 422
+        field = "key" if "/" in ref["key"] else "system"
+        assert any(error["field"].endswith(field) for error in refused.get_json()["errors"])
+    assert client.get(f"/v1/actions?mode_id={mode['id']}").get_json()["items"] == []
+
+
 def test_a_ticketing_system_creates_updates_and_closes_an_action_by_its_key(client):
     study = make_study(client)
     mode = make_mode(client, study["id"], 7, 8, 5)

@@ -77,8 +77,15 @@ class AsOf(ma.fields.Field):
 class ExternalRefSchema(ma.Schema):
     """A key in another system (ticketing, maintenance, PLM); unique per system and kind of resource."""
 
-    system = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=100))
-    key = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
+    # A slash could never be reached through /v1/actions/by-ref/{system}/{key}: refused up front.
+    system = ma.fields.String(
+        required=True,
+        validate=[ma.validate.Length(min=1, max=100), ma.validate.Regexp(r"^[^/]*$", error="may not contain /")],
+    )
+    key = ma.fields.String(
+        required=True,
+        validate=[ma.validate.Length(min=1, max=200), ma.validate.Regexp(r"^[^/]*$", error="may not contain /")],
+    )
 
 
 class PageArgsSchema(ma.Schema):
