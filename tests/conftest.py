@@ -171,6 +171,16 @@ def live_server(app):
         yield url
 
 
+@pytest.fixture
+def processes(tmp_path):
+    """Start `abate` subprocesses (see processes.py); whatever still runs is killed afterwards."""
+    from processes import Processes
+
+    started = Processes(tmp_path)
+    yield started
+    started.kill_all()
+
+
 HEAD_SCHEMA_VERSION = max(version for version, _, _ in db.available_migrations())
 BUILTIN_1_10 = "General 1-10"
 BUILTIN_1_5 = "Compact 1-5"

@@ -3,6 +3,7 @@
 from flask import Flask, request
 
 from abate import api, db
+from abate.api import access
 from abate.api.common import BoundedIntegerConverter
 from abate.config import load_config
 
@@ -14,6 +15,8 @@ def create_app(test_config=None):
     app.config["MAX_CONTENT_LENGTH"] = int(app.config["MAX_BODY_BYTES"])
     app.json.sort_keys = False
     app.url_map.converters["int"] = BoundedIntegerConverter
+    # First, so that its timing and access line cover every other hook.
+    access.init_app(app)
     db.init_app(app)
     api.init_app(app)
 

@@ -45,8 +45,11 @@ def serve(app, host, port, threads, no_scheduler):
     import waitress
 
     from abate.jobs import build_scheduler
+    from abate.logs import configure_logging
     from abate.webhook_worker import WebhookWorker
 
+    # One JSON object per line on stderr: an access line per request, the jobs' and workers' records.
+    configure_logging(app.config)
     with _connected(app):
         applied = db.upgrade()
     for version, name in applied:
@@ -75,15 +78,14 @@ def _schedule_line(config):
 @click.pass_obj
 def scheduler_command(app):
     """Run the reminder scheduler in this process (with `abate serve --no-scheduler` elsewhere)."""
-    import logging
-
     from apscheduler.schedulers.blocking import BlockingScheduler
 
     from abate.jobs import build_scheduler
+    from abate.logs import configure_logging
     from abate.webhook_worker import WebhookWorker
 
-    # Each run logs what it recorded and sent; this process has no other output.
-    logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    # Each run logs what it recorded and sent, as JSON lines on stderr; this process has no other output.
+    configure_logging(app.config)
     click.echo(_schedule_line(app.config))
     _stop_on_signals()
     webhook_worker = WebhookWorker(app.config)

@@ -39,6 +39,10 @@ SETTINGS = {
     ),
     "WEBHOOK_TIMEOUT": (15, "Seconds a webhook receiver has to connect and to answer, per attempt."),
     "WEBHOOK_MAX_ATTEMPTS": (10, "Attempts at one webhook delivery (backing off exponentially) before it fails."),
+    "LOG_LEVEL": (
+        "INFO",
+        "Least level logged by `abate serve` and `abate scheduler` (DEBUG, INFO, WARNING, ERROR), as JSON lines.",
+    ),
 }
 
 _BOOLEAN_SETTINGS = {name for name, (default, _) in SETTINGS.items() if isinstance(default, bool)}

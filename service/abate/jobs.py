@@ -4,13 +4,15 @@ import datetime
 import logging
 import zoneinfo
 
+import peewee
 from apscheduler.schedulers.background import BackgroundScheduler
 from apscheduler.triggers.cron import CronTrigger
 from apscheduler.triggers.interval import IntervalTrigger
 
 from abate import db, mail
-from abate.domain import reminders
+from abate.domain import reminders, scheduler_runs
 from abate.domain.clock import utcnow
+from abate.logs import SECRET_SETTINGS, redact
 
 log = logging.getLogger(__name__)
 
@@ -33,9 +35,30 @@ def deliver_pending(config, clock=utcnow):
     return reminders.run(policy, clock, mail.postman_for(config), record=False)
 
 
-def _in_own_connection(job, config):
+def run_recorded(name, job, config):
+    """Run job(config) in a connection of its own and record the run under name; a failure is recorded, then raised."""
     with db.database.connection_context():
-        report = job(config)
+        started = utcnow()
+        try:
+            result = job(config)
+        except Exception as error:
+            _record_failure(name, started, error, config)
+            raise
+        scheduler_runs.record_run(name, started, utcnow())
+    return result
+
+
+def _record_failure(name, started, error, config):
+    summary = redact(f"{type(error).__name__}: {error}", [config[setting] for setting in SECRET_SETTINGS])
+    try:
+        scheduler_runs.record_run(name, started, utcnow(), " ".join(summary.split()) or type(error).__name__)
+    except peewee.PeeweeException as recording_error:
+        # The database may be what failed; the job's own error is raised either way.
+        log.warning("could not record the failed run of %s: %s", name, recording_error)
+
+
+def _reminder_job(name, job, config):
+    report = run_recorded(name, job, config)
     log.info(
         "reminder job %s for %s: %d recorded, %d sent, %d retrying, %d failed%s",
         job.__name__,
@@ -45,18 +68,19 @@ def _in_own_connection(job, config):
         len(report.retrying),
         len(report.failed),
         f", skipped ({report.skipped})" if report.skipped else "",
+        extra={"job": name},
     )
     return report
 
 
 def daily_reminders(config):
     """Scheduled: the daily run on the real clock, in a connection of its own."""
-    return _in_own_connection(run_reminders, config)
+    return _reminder_job("daily_reminders", run_reminders, config)
 
 
 def retry_deliveries(config):
     """Scheduled: the frequent delivery of pending reminders, in a connection of its own."""
-    return _in_own_connection(deliver_pending, config)
+    return _reminder_job("retry_deliveries", deliver_pending, config)
 
 
 def reminder_time(config):

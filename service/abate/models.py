@@ -111,6 +111,10 @@ class Study(BaseModel):
     external_key = pw.CharField(max_length=200, null=True)
     # Count of risk events so far; a study's ETag changes with it.
     risk_revision = pw.IntegerField(default=0)
+    # Quantitative criticality (MIL-STD-1629A Task 102): off unless switched on, with the study's own
+    # map from severity ratings to classes I..IV as JSON ({"I": [9, 10], ...}).
+    criticality_enabled = pw.BooleanField(default=False)
+    severity_classes = pw.TextField(null=True)
     version = pw.IntegerField(default=1)
     created_at = pw.DateTimeField(default=utcnow)
     updated_at = pw.DateTimeField(default=utcnow)
@@ -148,6 +152,15 @@ class FailureMode(BaseModel):
     initial_severity = pw.SmallIntegerField()
     initial_occurrence = pw.SmallIntegerField()
     initial_detection = pw.SmallIntegerField()
+    # Task 102 inputs: the item's part failure rate (per hour or per cycle, as the unit's basis says; the
+    # unit is the one it was entered in), the failure mode ratio alpha, the effect probability beta and
+    # the operating time.
+    failure_rate = pw.DoubleField(null=True)
+    failure_rate_unit = pw.CharField(max_length=32, null=True)
+    mode_ratio = pw.DoubleField(null=True)
+    effect_probability = pw.DoubleField(null=True)
+    operating_time = pw.DoubleField(null=True)
+    operating_time_unit = pw.CharField(max_length=16, null=True)
     status = pw.CharField(max_length=16, default="active")
     external_system = pw.CharField(max_length=100, null=True)
     external_key = pw.CharField(max_length=200, null=True)
@@ -199,6 +212,10 @@ class CorrectiveAction(BaseModel):
     result_severity = pw.SmallIntegerField(null=True)
     result_occurrence = pw.SmallIntegerField(null=True)
     result_detection = pw.SmallIntegerField(null=True)
+    # A verified new part failure rate (stored per hour or per cycle) or failure mode ratio.
+    result_failure_rate = pw.DoubleField(null=True)
+    result_failure_rate_unit = pw.CharField(max_length=32, null=True)
+    result_mode_ratio = pw.DoubleField(null=True)
     evidence = pw.TextField(default="")
     verified_by = pw.CharField(max_length=200, default="")
     closed_at = pw.DateTimeField(null=True)
@@ -243,6 +260,9 @@ class RiskEvent(BaseModel):
     after_occurrence = pw.SmallIntegerField(null=True)
     after_detection = pw.SmallIntegerField(null=True)
     after_rpn = pw.IntegerField(null=True)
+    # The mode's criticality inputs and Cm before and after, as JSON (null where it has none).
+    before_criticality = pw.TextField(null=True)
+    after_criticality = pw.TextField(null=True)
     study_total_rpn = pw.IntegerField()
     study_max_rpn = pw.IntegerField()
     study_needs_action_count = pw.IntegerField()
@@ -351,6 +371,17 @@ class WebhookAttempt(BaseModel):
     duration_ms = pw.IntegerField()
 
 
+class SchedulerRun(BaseModel):
+    """The last run of one scheduled job (one row per job name), read by /metrics."""
+
+    job = pw.CharField(max_length=100, unique=True)
+    started_at = pw.DateTimeField()
+    finished_at = pw.DateTimeField()
+    # ok or failed; error is a one-line summary of a failure, empty after a good run.
+    outcome = pw.CharField(max_length=16)
+    error = pw.TextField(default="")
+
+
 ALL_MODELS = [
     ScaleSet,
     ScaleLevel,
@@ -366,4 +397,5 @@ ALL_MODELS = [
     WebhookSubscription,
     WebhookDelivery,
     WebhookAttempt,
+    SchedulerRun,
 ]

@@ -1,96 +1,58 @@
-"""Subprocess helpers for the fault tests: `abate` runs on a database URL, a served process, consistency checks."""
+"""Helpers for the fault tests: reading a database after its server died, spotting a write in flight, checks."""
 
-import os
-import signal
-import socket
-import subprocess
-import sys
-import time
-from pathlib import Path
+import contextlib
+import sqlite3
 
 import peewee
 import pytest
 import requests
 
-ROOT = Path(__file__).resolve().parents[2]
-ABATE = str(Path(sys.executable).with_name("abate"))
+from abate import db
+from abate.config import load_config
 
 
-def environment(url, tmp_path):
-    """The variables an `abate` process needs for this database and an instance folder of the test's."""
-    return {**os.environ, "ABATE_DATABASE_URL": url, "ABATE_INSTANCE_PATH": str(tmp_path / "instance")}
-
-
-def run_abate(url, tmp_path, *args, check=True):
-    """Run `abate ARGS` to completion; return the completed process."""
-    return subprocess.run(
-        [ABATE, *args],
-        env=environment(url, tmp_path),
-        cwd=ROOT,
-        capture_output=True,
-        text=True,
-        timeout=60,
-        check=check,
-    )
-
-
-def admin_secret(url, tmp_path):
-    """A new admin token's secret, created by `abate token create` (which also needs a migrated schema)."""
-    run_abate(url, tmp_path, "db", "upgrade")
-    return run_abate(url, tmp_path, "token", "create", "--name", "faults", "--role", "admin").stdout.splitlines()[-1]
-
-
-def _free_port():
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
-
-
-def _ready(base):
+@contextlib.contextmanager
+def reading(url):
+    """A connection of the test's own to the database behind url, for reading while or after servers run."""
+    database = db.open_database(url, load_config(environ={}))
     try:
-        return requests.get(f"{base}/readyz", timeout=2).status_code == 200
-    except requests.ConnectionError:
-        return False
+        with database.connection_context():
+            yield database
+    finally:
+        database.close_all()
 
 
-class Served:
-    """One `abate serve --no-scheduler` process on a free loopback port."""
-
-    def __init__(self, url, tmp_path):
-        self.base = f"http://127.0.0.1:{_free_port()}"
-        port = self.base.rsplit(":", 1)[1]
-        self.process = subprocess.Popen(
-            [ABATE, "serve", "--port", port, "--no-scheduler"],
-            env=environment(url, tmp_path),
-            cwd=ROOT,
-            stdout=subprocess.DEVNULL,
-            stderr=subprocess.DEVNULL,
+def writer_active(database, table):
+    """Whether another connection holds an unfinished write: a row lock on table (PostgreSQL) or the SQLite lock."""
+    if isinstance(database, peewee.PostgresqlDatabase):
+        # pg_locks shows the locks held right now; an INSERT or UPDATE holds RowExclusiveLock on its table until the
+        # transaction ends (PostgreSQL documentation, "Explicit Locking", table-level lock modes).
+        held = database.execute_sql(
+            "SELECT count(*) FROM pg_locks WHERE relation = to_regclass(%s)"
+            " AND mode = 'RowExclusiveLock' AND pid <> pg_backend_pid()",
+            (table,),
         )
-        deadline = time.monotonic() + 30
-        while not _ready(self.base):
-            assert self.process.poll() is None and time.monotonic() < deadline, "abate serve did not come up"
-            time.sleep(0.1)
+        return held.fetchone()[0] > 0
+    probe = sqlite3.connect(database.database, timeout=0, isolation_level=None)
+    try:
+        probe.execute("BEGIN IMMEDIATE")
+        probe.execute("ROLLBACK")
+        return False
+    except sqlite3.OperationalError as error:
+        # One writer at a time (https://www.sqlite.org/lockingv3.html): "database is locked" means one is writing.
+        if "locked" not in str(error):
+            raise
+        return True
+    finally:
+        probe.close()
 
-    def kill(self):
-        """SIGKILL: no handler runs, no transaction is finished, as when the machine loses power."""
-        self.process.send_signal(signal.SIGKILL)
-        self.process.wait(timeout=10)
 
-
-@pytest.fixture
-def serve(tmp_path):
-    """Start `abate serve --no-scheduler` processes on a URL; every one still running is killed afterwards."""
-    started = []
-
-    def start(url):
-        served = Served(url, tmp_path)
-        started.append(served)
-        return served
-
-    yield start
-    for served in started:
-        if served.process.poll() is None:
-            served.kill()
+def swallow(call):
+    """Run call; a connection that dies with the server is what the test expects."""
+    try:
+        call()
+    except requests.RequestException:
+        pass
 
 
 def assert_consistent(database):
@@ -111,12 +73,12 @@ def assert_consistent(database):
     ).fetchall()
     for action_id, status, has_closed_at, closings in actions:
         # One close per action in these tests, so closed means exactly one closing event.
-        assert (status == "closed") == has_closed_at == (closings == 1), (action_id, status, has_closed_at, closings)
+        assert (status == "closed") == bool(has_closed_at) == (closings == 1), (action_id, status, closings)
     return rows, actions
 
 
-def open_sqlite(url):
-    """A plain peewee connection to the SQLite file behind url, for reading after the server died."""
-    from abate.backup import sqlite_path
-
-    return peewee.SqliteDatabase(str(sqlite_path(url)))
+@pytest.fixture
+def http():
+    """A requests session, closed afterwards."""
+    with requests.Session() as session:
+        yield session

@@ -6,7 +6,7 @@ import threading
 import pytest
 
 import abate_client
-from faults.conftest import admin_secret
+from processes import abate_environment, admin_secret
 
 ROUNDS = 10
 IN_A_MONTH = (datetime.date.today() + datetime.timedelta(days=30)).isoformat()
@@ -33,12 +33,13 @@ def _race(calls):
 
 
 @pytest.fixture
-def two_instances(tmp_path, database_url, serve):
+def two_instances(tmp_path, database_url, processes):
     """Clients of two served processes on the same database (PostgreSQL only)."""
     if not database_url.startswith("postgres"):
         pytest.skip("several instances need PostgreSQL; SQLite suits one machine (README, Production shape)")
-    secret = admin_secret(database_url, tmp_path)
-    clients = [abate_client.Client(serve(database_url).base, token=secret, retries=0) for _ in range(2)]
+    env = abate_environment(database_url, tmp_path)
+    secret = admin_secret(env)
+    clients = [abate_client.Client(processes.serve(env).base, token=secret, retries=0) for _ in range(2)]
     yield clients
     for client in clients:
         client.close()

@@ -1,5 +1,6 @@
 """Fixtures for reminder tests: a real SMTP server on loopback, the app pointed at it, test data, runs at a time."""
 
+import asyncio
 import email
 import email.policy
 import socket
@@ -26,12 +27,15 @@ class Received:
 
 
 class _Collector:
-    """aiosmtpd handler that keeps every message it accepts."""
+    """aiosmtpd handler that keeps every message it accepts, each after `delay` seconds (a slow server)."""
 
-    def __init__(self):
+    def __init__(self, delay=0.0):
         self.received = []
+        self.delay = delay
 
     async def handle_DATA(self, server, session, envelope):  # noqa: N802 - aiosmtpd's hook name
+        # A client gone during the wait cancels this coroutine: the message is never accepted.
+        await asyncio.sleep(self.delay)
         self.received.append(
             Received(
                 envelope.mail_from,
@@ -51,11 +55,14 @@ def free_port():
 
 
 class SmtpServer:
-    """An aiosmtpd server on a fixed loopback port that can be stopped and started again (an outage)."""
+    """An aiosmtpd server on a fixed loopback port that can be stopped and started again (an outage).
 
-    def __init__(self, port, **controller_options):
+    With delay, each message is accepted only that many seconds after its data arrived.
+    """
+
+    def __init__(self, port, delay=0.0, **controller_options):
         self.port = port
-        self._collector = _Collector()
+        self._collector = _Collector(delay)
         self._options = controller_options
         self._controller = None
 

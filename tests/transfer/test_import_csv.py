@@ -54,7 +54,8 @@ def test_imported_creation_events_carry_the_source_import_and_the_file_name(clie
     assert [event["reason"] for event in created] == [f"imported from line 2.csv, row {row}" for row in (2, 3, 4)]
     assert all(event["actor"].startswith("test admin") for event in created)
     [action_event] = [event for event in events_of(client, study["id"]) if event["kind"] == "action_created"]
-    assert action_event["source"] == "import"
+    # The action's creation names the file and row as its mode's does.
+    assert (action_event["source"], action_event["reason"]) == ("import", "imported from line 2.csv, row 2")
 
 
 @pytest.mark.parametrize("delimiter", [",", ";", "\t", "|"])

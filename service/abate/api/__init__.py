@@ -171,9 +171,11 @@ def init_app(app):
     """Create the Api for app, register every resource's blueprint and the request checks."""
     from abate.api import (
         actions,
+        criticality,
         health,
         history,
         idempotency,
+        metrics,
         modes,
         owners,
         ratelimit,
@@ -208,7 +210,21 @@ def init_app(app):
     api.register_converter(
         BoundedIntegerConverter, lambda converter: {"type": "integer", "minimum": 0, "maximum": MAX_ID}
     )
-    for module in (health, scales, studies, modes, actions, history, tokens, reminders, owners, webhooks, transfer):
+    for module in (
+        health,
+        metrics,
+        scales,
+        studies,
+        modes,
+        actions,
+        history,
+        criticality,
+        tokens,
+        reminders,
+        owners,
+        webhooks,
+        transfer,
+    ):
         api.register_blueprint(module.blp)
     requestid.init_app(app)
     app.before_request(require_token)

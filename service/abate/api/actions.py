@@ -20,6 +20,7 @@ from abate.api.common import (
     list_schema,
     page_of,
 )
+from abate.api.criticality import VerifiedRateSchema
 from abate.api.studies import OwnerSchema, RatingsSchema
 from abate.domain import actions
 from abate.domain.references import find_by_reference
@@ -103,11 +104,15 @@ class ActionPatchSchema(ActionSchema):
         super().__init__(*args, **{"partial": True, **kwargs})
 
 
+class ClosureResultSchema(TargetSchema, VerifiedRateSchema):
+    """Verified ratings after the action, and (for criticality) a verified failure rate or mode ratio."""
+
+
 class CloseSchema(ma.Schema):
     """The verified outcome of an action."""
 
     result = ma.fields.Nested(
-        TargetSchema,
+        ClosureResultSchema,
         load_default=dict,
         metadata={"description": "Verified ratings after the action; omitted ones stay"},
     )

@@ -5,7 +5,7 @@ from flask import g, request
 from abate.domain.tokens import authenticate
 from abate.errors import AbateError
 
-PUBLIC_ENDPOINTS = {"health.livez", "health.readyz", "api-docs.openapi_json"}
+PUBLIC_ENDPOINTS = {"health.livez", "health.readyz", "metrics.metrics", "api-docs.openapi_json"}
 SAFE_METHODS = {"GET", "HEAD", "OPTIONS"}
 # Blueprints only admins may use at all, and those whose writes need an admin.
 ADMIN_ONLY = {"tokens", "webhooks"}

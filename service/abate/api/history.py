@@ -9,6 +9,7 @@ from abate.api.common import DATE_RANGE, UTCDateTime
 from abate.domain import charts, history
 from abate.domain.caching import BoundedCache
 from abate.domain.clock import local_today, utcnow
+from abate.domain.criticality_report import class_series
 from abate.domain.projection import projection
 from abate.domain.studies import CAUTION, check_timezone, get_study, studies_query
 from abate.errors import ValidationFailed, field_error
@@ -107,6 +108,12 @@ class StudyHistorySchema(ma.Schema):
     timezone = ma.fields.String()
     points = ma.fields.List(ma.fields.Nested(HistoryPointSchema))
     modes = ma.fields.List(ma.fields.Nested(ModeSeriesSchema))
+    criticality_by_class = ma.fields.Dict(
+        keys=ma.fields.String(),
+        values=ma.fields.List(ma.fields.Float()),
+        allow_none=True,
+        metadata={"description": "Total Cm per severity class I..IV at each point; null while criticality is off"},
+    )
     projection = ma.fields.Nested(ProjectionSchema)
     caution = ma.fields.String()
 
@@ -171,6 +178,7 @@ def study_history(study, args, now):
         "timezone": study.timezone,
         "points": points,
         "modes": series,
+        "criticality_by_class": class_series(study, lookups) if study.criticality_enabled else None,
         "projection": projection(study, args["interval"], now),
         "caution": CAUTION,
     }

@@ -19,6 +19,7 @@ from abate.api.common import (
     list_schema,
     page_of,
 )
+from abate.api.criticality import ModeFiguresSchema, ModeInputsSchema
 from abate.api.studies import RatingsSchema
 from abate.domain import modes
 from abate.domain.scoring import PRIORITY_BANDS
@@ -31,8 +32,8 @@ blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes"
 _TEXT = ma.validate.Length(max=10000)
 
 
-class ModeSchema(ma.Schema):
-    """One failure mode (an analysis row) with its scores."""
+class ModeSchema(ModeInputsSchema):
+    """One failure mode (an analysis row) with its scores (and its Task 102 inputs, for criticality)."""
 
     id = ma.fields.Integer(dump_only=True)
     study_id = ma.fields.Integer(dump_only=True)
@@ -68,6 +69,12 @@ class ModeSchema(ma.Schema):
     created_at = UTCDateTime(dump_only=True)
     updated_at = UTCDateTime(dump_only=True)
     retired_at = UTCDateTime(dump_only=True, allow_none=True)
+    fmeca = ma.fields.Nested(
+        ModeFiguresSchema,
+        dump_only=True,
+        allow_none=True,
+        metadata={"description": "Severity class, Cm, share and level; null while the study's criticality is off"},
+    )
     effective_at = UTCDateTime(
         load_only=True,
         metadata={
@@ -102,8 +109,8 @@ class ModeQueryArgsSchema(PageArgsSchema):
 
 
 def _respond(mode, status=200):
-    view = modes.mode_view(mode)
     study = get_study(mode.study_id)
+    view = modes.mode_views([mode], study)[0]
     headers = {"ETag": etag(mode_tag(mode, study))}
     if status == 201:
         headers["Location"] = f"/v1/modes/{mode.id}"

@@ -18,6 +18,7 @@ from abate.api.common import (
     list_schema,
     page_of,
 )
+from abate.api.criticality import CriticalitySettingsSchema
 from abate.domain import events as risk_events
 from abate.domain import history, studies
 from abate.domain.events import EVENT_KINDS
@@ -123,6 +124,10 @@ class StudySchema(ma.Schema):
         metadata={"description": "A mode with severity at or above this needs action whatever its RPN"},
     )
     external_ref = ma.fields.Nested(ExternalRefSchema, allow_none=True)
+    criticality = ma.fields.Nested(
+        CriticalitySettingsSchema,
+        metadata={"description": "Quantitative criticality (MIL-STD-1629A Task 102): switch and severity classes"},
+    )
     risk = ma.fields.Nested(RiskSummarySchema, dump_only=True)
     version = ma.fields.Integer(dump_only=True)
     risk_revision = ma.fields.Integer(dump_only=True, metadata={"description": "Risk events so far"})
@@ -178,6 +183,10 @@ class RiskEventSchema(ma.Schema):
     reason = ma.fields.String()
     before = ma.fields.Nested(RatingsSchema, allow_none=True)
     after = ma.fields.Nested(RatingsSchema, allow_none=True)
+    criticality_before = ma.fields.Dict(
+        allow_none=True, metadata={"description": "The mode's stored criticality inputs and Cm before"}
+    )
+    criticality_after = ma.fields.Dict(allow_none=True, metadata={"description": "... and after"})
     study_total_rpn = ma.fields.Integer()
     study_max_rpn = ma.fields.Integer()
     study_needs_action_count = ma.fields.Integer()

@@ -4,6 +4,7 @@ import peewee as pw
 
 from abate.db import database
 from abate.domain import events as risk_events
+from abate.domain import fmeca
 from abate.domain.clock import local_today, utcnow
 from abate.domain.modes import apply_ratings, locked_active_mode, ratings_of
 from abate.domain.references import reference_view, save_referenced, set_reference
@@ -17,6 +18,8 @@ from abate.models import RATING_DIMENSIONS, CorrectiveAction, RiskEvent, Study
 ACTION_KINDS = ("prevention", "detection", "design_change")
 ACTION_STATUSES = ("open", "in_progress", "closed", "cancelled")
 UNFINISHED = ("open", "in_progress")
+# What a closure may verify beside the ratings: a new part failure rate or failure mode ratio.
+CRITICALITY_RESULTS = ("failure_rate", "failure_rate_unit", "mode_ratio")
 _TEXT_FIELDS = ("title", "description", "kind")
 ACTION_SORTS = {
     "due_date": [(CorrectiveAction.due_date, False), (CorrectiveAction.id, False)],
@@ -37,7 +40,25 @@ def _set_target(action, target):
         setattr(action, f"target_{name}", (target or {}).get(name))
 
 
-def create_action(mode_id, data, *, actor, source):
+def new_action(mode, study, data, created_at):
+    """An unsaved action on the mode from checked create data (no external reference), created at created_at."""
+    action = CorrectiveAction(
+        mode=mode,
+        study=study,
+        **{name: data[name] for name in _TEXT_FIELDS if name in data},
+        owner_name=data["owner"]["name"],
+        owner_email=data["owner"]["email"],
+        due_date=data["due_date"],
+        original_due_date=data["due_date"],
+        status=data.get("status", "open"),
+        created_at=created_at,
+        updated_at=created_at,
+    )
+    _set_target(action, data.get("target"))
+    return action
+
+
+def create_action(mode_id, data, *, actor, source, reason=""):
     """Open a corrective action on an active mode."""
     if data.get("status", "open") not in UNFINISHED:
         raise ValidationFailed(
@@ -47,23 +68,18 @@ def create_action(mode_id, data, *, actor, source):
         study, mode = locked_active_mode(mode_id)
         check_ratings(study.scale_set, {key: value for key, value in (data.get("target") or {}).items() if value})
         occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
-        action = CorrectiveAction(
-            mode=mode,
-            study=study,
-            **{name: data[name] for name in _TEXT_FIELDS if name in data},
-            owner_name=data["owner"]["name"],
-            owner_email=data["owner"]["email"],
-            due_date=data["due_date"],
-            original_due_date=data["due_date"],
-            status=data.get("status", "open"),
-            created_at=occurred_at,
-            updated_at=occurred_at,
-        )
-        _set_target(action, data.get("target"))
+        action = new_action(mode, study, data, occurred_at)
         set_reference(action, data.get("external_ref"))
         save_referenced(action)
         risk_events.record_event(
-            study, "action_created", mode=mode, action=action, actor=actor, source=source, occurred_at=occurred_at
+            study,
+            "action_created",
+            mode=mode,
+            action=action,
+            actor=actor,
+            source=source,
+            reason=reason,
+            occurred_at=occurred_at,
         )
     return action
 
@@ -165,14 +181,21 @@ def close_action(action_id, data, *, actor, source, expected_tags=None):
         occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
         study, mode = locked_active_mode(action.mode_id)
         result = {name: value for name, value in (data.get("result") or {}).items() if value is not None}
-        check_ratings(study.scale_set, result)
+        ratings_result = {name: value for name, value in result.items() if name in RATING_DIMENSIONS}
+        check_ratings(study.scale_set, ratings_result)
         before = ratings_of(mode)
-        after = Ratings(**{name: result.get(name, getattr(before, name)) for name in RATING_DIMENSIONS})
+        after = Ratings(**{name: ratings_result.get(name, getattr(before, name)) for name in RATING_DIMENSIONS})
         raised = any(getattr(after, name) > getattr(before, name) for name in RATING_DIMENSIONS)
+        criticality_before = fmeca.snapshot(mode)
+        fmeca.apply_mode_inputs(mode, {name: result[name] for name in CRITICALITY_RESULTS if name in result})
+        fmeca.check_item_ratios(study, mode)
         apply_ratings(mode, after)
         save_new_version(mode, occurred_at)
         for name in RATING_DIMENSIONS:
             setattr(action, f"result_{name}", getattr(after, name))
+        if "failure_rate" in result:
+            action.result_failure_rate, action.result_failure_rate_unit = mode.failure_rate, mode.failure_rate_unit
+        action.result_mode_ratio = result.get("mode_ratio")
         action.status = "closed"
         action.evidence = data["evidence"]
         action.verified_by = data.get("verified_by", "")
@@ -190,6 +213,7 @@ def close_action(action_id, data, *, actor, source, expected_tags=None):
             reason=data["evidence"],
             occurred_at=occurred_at,
             rating_raised=raised,
+            criticality_before=criticality_before,
         )
     return action
 
@@ -220,9 +244,12 @@ def reopen_action(action_id, reason, *, actor, source, expected_tags=None):
             for name in RATING_DIMENSIONS
         }
         after = Ratings(**restored)
+        criticality_before = fmeca.snapshot(mode)
+        if closure.before_criticality != closure.after_criticality:
+            fmeca.restore(mode, closure.before_criticality)
         apply_ratings(mode, after)
         save_new_version(mode)
-        for name in RATING_DIMENSIONS:
+        for name in (*RATING_DIMENSIONS, *CRITICALITY_RESULTS):
             setattr(action, f"result_{name}", None)
         action.status, action.closed_at, action.evidence, action.verified_by = "open", None, "", ""
         save_new_version(action)
@@ -236,6 +263,7 @@ def reopen_action(action_id, reason, *, actor, source, expected_tags=None):
             actor=actor,
             source=source,
             reason=reason,
+            criticality_before=criticality_before,
         )
     return action
 

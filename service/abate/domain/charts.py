@@ -59,7 +59,7 @@ def burn_down_chart(document, study_title, closures, image_format):
     count_axes = total_axes.twinx()
     _draw_series(total_axes, count_axes, document, closures, zone)
     _label(figure, total_axes, count_axes, document, study_title)
-    return _render(figure, image_format)
+    return render(figure, image_format)
 
 
 def _reaches_now(document):
@@ -155,7 +155,8 @@ def _subtitle(document):
     return f"{subtitle}; projected: no mode needing action from {done_date.isoformat()}"
 
 
-def _render(figure, image_format):
+def render(figure, image_format):
+    """The figure as SVG (no creation date, so equal figures are equal bytes) or PNG bytes."""
     buffer = io.BytesIO()
     if image_format == "svg":
         # No creation date in the metadata, so the same history gives the same bytes.

@@ -1,11 +1,12 @@
 """Risk events: the append-only record of every change to a study's risk, with running totals."""
 
 import datetime
+import json
 
 import peewee as pw
 
 from abate.db import lock_for_update
-from abate.domain import webhooks
+from abate.domain import fmeca, webhooks
 from abate.domain.clock import utcnow
 from abate.domain.scoring import RiskPolicy, needs_action_reasons
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
@@ -20,7 +21,16 @@ CAUSE_OF_KIND = {
     "retired": "change_retirements",
 }
 CAUSES = ("change_new_modes", "change_rerating", "change_actions", "change_retirements")
-EVENT_KINDS = (*CAUSE_OF_KIND, "policy_changed", "action_created", "action_updated", "action_cancelled")
+EVENT_KINDS = (
+    *CAUSE_OF_KIND,
+    "policy_changed",
+    "criticality_changed",
+    "action_created",
+    "action_updated",
+    "action_cancelled",
+)
+# record_event's default for the criticality before: unchanged, the same as the mode's now.
+UNCHANGED = object()
 # A recorded past time may lag the clock of the machine that sends it by this much.
 CLOCK_SKEW = datetime.timedelta(minutes=5)
 
@@ -83,11 +93,13 @@ def record_event(
     reason="",
     occurred_at=None,
     rating_raised=False,
+    criticality_before=UNCHANGED,
 ):
     """Append an event; study must be locked and the mode/action already saved in their new state.
 
     before/after are Ratings (or None where the mode enters or leaves the study). The
     study's running total moves by the RPN difference and the event keeps the totals after it.
+    criticality_before is the mode's fmeca.snapshot before the change, where the change touched it.
     """
     delta = (after.rpn if after else 0) - (before.rpn if before else 0)
     previous = latest_event(study)
@@ -109,6 +121,7 @@ def record_event(
         actor=actor,
         source=source,
         reason=reason or "",
+        **_criticality_columns(kind, mode, criticality_before),
         **_ratings_columns("before", before),
         **_ratings_columns("after", after),
         study_total_rpn=study.total_rpn,
@@ -141,6 +154,19 @@ def _needs_action_count_after(study, kind, previous, before, after, active):
     return previous.study_needs_action_count + needs(after) - needs(before)
 
 
+def _criticality_columns(kind, mode, criticality_before):
+    """The mode's criticality snapshots before and after (a mode entering has none before, leaving none after)."""
+    now = fmeca.snapshot(mode)
+    if kind == "retired":
+        return {"before_criticality": now, "after_criticality": None}
+    before = None if kind == "created" else now if criticality_before is UNCHANGED else criticality_before
+    return {"before_criticality": before, "after_criticality": now}
+
+
+def _criticality_view(stored):
+    return json.loads(stored) if stored else None
+
+
 def _ratings_columns(prefix, ratings):
     values = ratings.as_dict() if ratings else dict.fromkeys(("severity", "occurrence", "detection", "rpn"))
     return {f"{prefix}_{name}": value for name, value in values.items()}
@@ -167,6 +193,8 @@ def event_view(event):
         "reason": event.reason,
         "before": _ratings_view(event, "before"),
         "after": _ratings_view(event, "after"),
+        "criticality_before": _criticality_view(event.before_criticality),
+        "criticality_after": _criticality_view(event.after_criticality),
         "study_total_rpn": event.study_total_rpn,
         "study_max_rpn": event.study_max_rpn,
         "study_needs_action_count": event.study_needs_action_count,

@@ -13,6 +13,7 @@ from openpyxl.utils import get_column_letter
 
 from abate.domain.actions import action_views
 from abate.domain.clock import utcnow
+from abate.domain.criticality_report import criticality_report
 from abate.domain.history import to_local_date
 from abate.domain.modes import mode_views
 from abate.domain.studies import CAUTION, get_study, study_view
@@ -63,12 +64,30 @@ COLUMNS = (
     ("Closed on", 11, lambda mode, action: action and action["closed_on"]),
     ("Evidence", 40, lambda mode, action: action and action["evidence"]),
 )
+# Added after the others while the study has quantitative criticality switched on (MIL-STD-1629A Task 102).
+CRITICALITY_COLUMNS = (
+    ("Failure rate", 13, lambda mode, action: mode["failure_rate"]),
+    ("Rate unit", 18, lambda mode, action: mode["failure_rate_unit"]),
+    ("Mode ratio", 11, lambda mode, action: mode["mode_ratio"]),
+    ("Effect probability", 12, lambda mode, action: mode["effect_probability"]),
+    ("Operating time", 12, lambda mode, action: mode["operating_time"]),
+    ("Time unit", 9, lambda mode, action: mode["operating_time_unit"]),
+    ("Severity class", 9, lambda mode, action: mode["fmeca"] and mode["fmeca"]["severity_class"]),
+    ("Cm", 12, lambda mode, action: mode["fmeca"] and mode["fmeca"]["mode_criticality"]),
+    ("Level", 7, lambda mode, action: mode["fmeca"] and mode["fmeca"]["level"]),
+)
 HEADER_FILL = PatternFill("solid", start_color="DDE4EE")
+
+
+def columns_of(view):
+    """The sheet's columns for this study: the criticality ones too while it has them switched on."""
+    return COLUMNS + CRITICALITY_COLUMNS if view["criticality"]["enabled"] else COLUMNS
 
 
 def _contents(study):
     """The study's view, and its modes (creation order) each with its actions under `actions`."""
     view = study_view(study)
+    view["criticality_by_class"] = criticality_report(study)["total_by_class"] if study.criticality_enabled else None
     mode_list = mode_views(FailureMode.select().where(FailureMode.study == study).order_by(FailureMode.id), study)
     actions = (
         CorrectiveAction.select(CorrectiveAction, Study)
@@ -86,11 +105,11 @@ def _contents(study):
     return view, mode_list
 
 
-def _table_rows(mode_list):
+def _table_rows(mode_list, columns):
     """One row per mode and action; a mode without actions gets one row with the action columns empty."""
     for mode in mode_list:
         for action in mode["actions"] or [None]:
-            yield [value(mode, action) for _, _, value in COLUMNS]
+            yield [value(mode, action) for _, _, value in columns]
 
 
 def _summary_rows(view, exported_at):
@@ -120,6 +139,7 @@ def _summary_rows(view, exported_at):
         ("High priority", risk["by_priority"]["high"]),
         ("Medium priority", risk["by_priority"]["medium"]),
         ("Low priority", risk["by_priority"]["low"]),
+        *((f"Cr, severity class {name}", value) for name, value in (view["criticality_by_class"] or {}).items()),
         ("Exported at (UTC)", exported_at),
     ]
 
@@ -127,9 +147,10 @@ def _summary_rows(view, exported_at):
 def _csv(view, mode_list, exported_at):
     buffer = io.StringIO()
     writer = csv.writer(buffer)
-    writer.writerow([title for title, _, _ in COLUMNS])
+    columns = columns_of(view)
+    writer.writerow([title for title, _, _ in columns])
     # None is written as an empty cell, dates and times as str() spells them (YYYY-MM-DD, YYYY-MM-DD HH:MM:SS).
-    writer.writerows(_table_rows(mode_list))
+    writer.writerows(_table_rows(mode_list, columns))
     writer.writerow([])
     writer.writerows(_summary_rows(view, exported_at))
     writer.writerow([f"Caution: {CAUTION}"])
@@ -156,18 +177,19 @@ def _xlsx(view, mode_list, exported_at):
     # Write-only mode streams rows to the file instead of holding every cell in memory.
     workbook = openpyxl.Workbook(write_only=True)
     modes_sheet = workbook.create_sheet("Modes")
-    for index, (_, width, _) in enumerate(COLUMNS, start=1):
+    columns = columns_of(view)
+    for index, (_, width, _) in enumerate(columns, start=1):
         modes_sheet.column_dimensions[get_column_letter(index)].width = width
     # Row 1 the title, row 2 the header; the panes keep both and the ID and item columns in view.
     modes_sheet.freeze_panes = "C3"
     modes_sheet.append([_styled(modes_sheet, f"{view['title']} - FMEA worksheet", font=Font(bold=True, size=14))])
     header_style = {"font": Font(bold=True), "fill": HEADER_FILL, "alignment": Alignment(wrap_text=True)}
-    modes_sheet.append([_styled(modes_sheet, title, **header_style) for title, _, _ in COLUMNS])
+    modes_sheet.append([_styled(modes_sheet, title, **header_style) for title, _, _ in columns])
     last_row = 2
-    for row in _table_rows(mode_list):
+    for row in _table_rows(mode_list, columns):
         modes_sheet.append([_data_cell(modes_sheet, value) for value in row])
         last_row += 1
-    modes_sheet.auto_filter.ref = f"A2:{get_column_letter(len(COLUMNS))}{last_row}"
+    modes_sheet.auto_filter.ref = f"A2:{get_column_letter(len(columns))}{last_row}"
     modes_sheet.append([])
     modes_sheet.append([_styled(modes_sheet, f"Caution: {CAUTION}", font=Font(italic=True))])
 
@@ -194,13 +216,14 @@ def _json_value(value):
 def export_document(view, mode_list, exported_at):
     """The JSON export: study, risk summary, and every mode with its actions; it re-imports as it is."""
     study_fields = ("id", "title", "kind", "scope", "site", "product_line", "tags", "owner", "scale_id", "timezone")
-    policy_fields = ("status", "action_threshold", "severity_threshold")
+    policy_fields = ("status", "action_threshold", "severity_threshold", "criticality")
     return {
         "format": EXPORT_FORMAT,
         "format_version": EXPORT_FORMAT_VERSION,
         "exported_at": exported_at,
         "study": {name: view[name] for name in (*study_fields, *policy_fields)},
         "risk": view["risk"],
+        "criticality_by_class": view["criticality_by_class"],
         "modes": [
             {
                 **{name: value for name, value in mode.items() if name not in ("study_id", "actions")},

@@ -2,6 +2,7 @@
 
 from abate.db import database
 from abate.domain import events as risk_events
+from abate.domain import fmeca
 from abate.domain.clock import utcnow
 from abate.domain.history import as_of_lookup, ratings_as_of
 from abate.domain.references import reference_view, set_reference
@@ -11,6 +12,7 @@ from abate.domain.studies import get_study, policy_of, require_open_for_changes
 from abate.domain.versions import check_precondition, mode_tag, save_new_version
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode
+from abate.prepared import PreparedSelect
 
 TEXT_FIELDS = (
     "item",
@@ -28,9 +30,18 @@ MODE_SORTS = {
 }
 
 
+_MODE_BY_ID = PreparedSelect(FailureMode, lambda mode_id: FailureMode.select().where(FailureMode.id == mode_id))
+_UNFINISHED_ACTIONS_OF_MODES = PreparedSelect(
+    CorrectiveAction,
+    lambda *mode_ids: CorrectiveAction.select().where(
+        CorrectiveAction.mode.in_(mode_ids) & CorrectiveAction.unfinished()
+    ),
+)
+
+
 def get_mode(mode_id):
     """Return the failure mode with this id or raise NotFound."""
-    mode = FailureMode.get_or_none(FailureMode.id == mode_id)
+    mode = _MODE_BY_ID.first(mode_id)
     if mode is None:
         raise NotFound(f"failure mode {mode_id} does not exist")
     return mode
@@ -52,6 +63,24 @@ def apply_ratings(mode, ratings):
     mode.rpn = ratings.rpn
 
 
+def new_mode(study, data, created_at):
+    """An unsaved mode of the study from checked create data (no external reference), at its initial ratings."""
+    ratings = Ratings(data["severity"], data["occurrence"], data["detection"])
+    mode = FailureMode(
+        study=study,
+        created_at=created_at,
+        updated_at=created_at,
+        **{name: data[name] for name in TEXT_FIELDS if name in data},
+    )
+    apply_ratings(mode, ratings)
+    mode.initial_severity, mode.initial_occurrence, mode.initial_detection = (
+        ratings.severity,
+        ratings.occurrence,
+        ratings.detection,
+    )
+    return mode
+
+
 def create_mode(study_id, data, *, actor, source, reason=""):
     """Add a failure mode to a study and record its creation event (at data's effective_at, if any)."""
     with database.atomic():
@@ -59,26 +88,16 @@ def create_mode(study_id, data, *, actor, source, reason=""):
         require_open_for_changes(study)
         check_ratings(study.scale_set, data)
         occurred_at = risk_events.resolve_effective_at(study, data.get("effective_at"))
-        ratings = Ratings(data["severity"], data["occurrence"], data["detection"])
-        mode = FailureMode(
-            study=study,
-            created_at=occurred_at,
-            updated_at=occurred_at,
-            **{name: data[name] for name in TEXT_FIELDS if name in data},
-        )
-        apply_ratings(mode, ratings)
+        mode = new_mode(study, data, occurred_at)
+        fmeca.apply_mode_inputs(mode, data)
+        fmeca.check_item_ratios(study, mode)
         set_reference(mode, data.get("external_ref"))
-        mode.initial_severity, mode.initial_occurrence, mode.initial_detection = (
-            ratings.severity,
-            ratings.occurrence,
-            ratings.detection,
-        )
         mode.save()
         risk_events.record_event(
             study,
             "created",
             mode=mode,
-            after=ratings,
+            after=ratings_of(mode),
             actor=actor,
             source=source,
             reason=reason,
@@ -116,19 +135,24 @@ def update_mode(mode_id, changes, *, actor, source, expected_tags=None):
                 setattr(mode, name, changes[name])
         if "external_ref" in changes:
             set_reference(mode, changes["external_ref"])
+        criticality_before = fmeca.snapshot(mode)
+        fmeca.apply_mode_inputs(mode, changes)
+        fmeca.check_item_ratios(study, mode)
         apply_ratings(mode, after)
         save_new_version(mode)
-        if after != before:
+        criticality_changed = fmeca.snapshot(mode) != criticality_before
+        if after != before or criticality_changed:
             risk_events.record_event(
                 study,
-                "rerated",
+                "rerated" if after != before else "criticality_changed",
                 mode=mode,
                 before=before,
                 after=after,
                 actor=actor,
                 source=source,
-                reason=changes["reason"].strip(),
+                reason=changes.get("reason", "").strip(),
                 occurred_at=occurred_at,
+                criticality_before=criticality_before,
             )
     return mode
 
@@ -176,8 +200,7 @@ def modes_query(study_id, status=None, needs_action=None, priority=None, min_rpn
 def unfinished_targets(mode_ids):
     """{mode_id: [target dicts of its open or in-progress actions]} for the given modes."""
     targets = {mode_id: [] for mode_id in mode_ids}
-    query = CorrectiveAction.select().where(CorrectiveAction.mode.in_(list(mode_ids)) & CorrectiveAction.unfinished())
-    for action in query:
+    for action in _UNFINISHED_ACTIONS_OF_MODES.rows(*mode_ids) if mode_ids else ():
         targets[action.mode_id].append({name: getattr(action, f"target_{name}") for name in RATING_DIMENSIONS})
     return targets
 
@@ -193,12 +216,14 @@ def mode_views(modes, study=None):
     """The modes as plain data for the API, scored by their study's policy."""
     modes = list(modes)
     targets = unfinished_targets([mode.id for mode in modes])
-    studies = {}
+    studies, quantitative = {}, {}
     views = []
     for mode in modes:
         if study is None or study.id != mode.study_id:
             study = studies.get(mode.study_id) or get_study(mode.study_id)
             studies[study.id] = study
+        if study.criticality_enabled and study.id not in quantitative:
+            quantitative[study.id] = (fmeca.class_by_rating(study), fmeca.ratio_sums(study))
         current = ratings_of(mode)
         assessment = assess(current, policy_of(study))
         views.append(
@@ -220,6 +245,8 @@ def mode_views(modes, study=None):
                 "created_at": mode.created_at,
                 "updated_at": mode.updated_at,
                 "retired_at": mode.retired_at,
+                **fmeca.inputs_view(mode),
+                "fmeca": fmeca.mode_figures(mode, *quantitative[study.id]) if study.id in quantitative else None,
             }
         )
     return views

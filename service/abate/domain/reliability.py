@@ -2,12 +2,21 @@
 
 import math
 
-# Hours per unit of each accepted failure-rate unit: FPMH is per 1e6 h, FIT per 1e9 h (JEDEC JESD85).
-RATE_UNITS = {"per_hour": 1.0, "per_million_hours": 1e6, "fit": 1e9}
+# Hours (or cycles) per unit of each accepted failure-rate unit: FPMH is per 1e6 h, FIT per 1e9 h (JEDEC JESD85).
+RATE_UNITS = {"per_hour": 1.0, "per_million_hours": 1e6, "fit": 1e9, "per_cycle": 1.0, "per_million_cycles": 1e6}
+# What each unit counts failures against; an operating time must be given in the same basis.
+RATE_BASIS = {
+    "per_hour": "hours",
+    "per_million_hours": "hours",
+    "fit": "hours",
+    "per_cycle": "cycles",
+    "per_million_cycles": "cycles",
+}
 
 
 def to_per_hour(value: float, unit: str) -> float:
-    """Convert a failure rate given in `unit` (a RATE_UNITS key) to failures per hour."""
+    """Convert a failure rate given in `unit` (a RATE_UNITS key) to failures per hour (per cycle for
+    the cycle units)."""
     if unit not in RATE_UNITS:
         raise ValueError(f"unknown failure-rate unit {unit!r}; use one of {sorted(RATE_UNITS)}")
     if value < 0:
@@ -16,7 +25,7 @@ def to_per_hour(value: float, unit: str) -> float:
 
 
 def from_per_hour(rate_per_hour: float, unit: str) -> float:
-    """Express a per-hour failure rate in `unit` (a RATE_UNITS key)."""
+    """Express a per-hour (or per-cycle) failure rate in `unit` (a RATE_UNITS key)."""
     if unit not in RATE_UNITS:
         raise ValueError(f"unknown failure-rate unit {unit!r}; use one of {sorted(RATE_UNITS)}")
     return rate_per_hour * RATE_UNITS[unit]

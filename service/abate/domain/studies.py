@@ -6,6 +6,7 @@ import peewee as pw
 
 from abate.db import database
 from abate.domain import events as risk_events
+from abate.domain import fmeca
 from abate.domain.clock import local_today
 from abate.domain.references import reference_view, save_referenced, set_reference
 from abate.domain.scales import get_scale_set
@@ -13,6 +14,7 @@ from abate.domain.scoring import Ratings, RiskPolicy, assess, projected_ratings
 from abate.domain.versions import check_precondition, save_new_version, study_tag
 from abate.errors import Conflict, InvalidTransition, NotFound, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode, Study, StudyTag
+from abate.prepared import PreparedSelect
 
 STUDY_KINDS = ("design", "process", "system", "other")
 STUDY_STATUSES = ("draft", "active", "archived")
@@ -30,9 +32,12 @@ CAUTION = (
 _PLAIN_FIELDS = ("title", "kind", "scope", "site", "product_line", "timezone")
 
 
+_STUDY_BY_ID = PreparedSelect(Study, lambda study_id: Study.select().where(Study.id == study_id))
+
+
 def get_study(study_id):
     """Return the study with this id or raise NotFound."""
-    study = Study.get_or_none(Study.id == study_id)
+    study = _STUDY_BY_ID.first(study_id)
     if study is None:
         raise NotFound(f"study {study_id} does not exist")
     return study
@@ -85,6 +90,7 @@ def create_study(data):
         severity_threshold=data.get("severity_threshold") or scale_set.default_severity_threshold,
     )
     _check_policy(study, scale_set)
+    fmeca.apply_study_settings(study, data.get("criticality") or {}, scale_set)
     set_reference(study, data.get("external_ref"))
     with database.atomic():
         save_referenced(study)
@@ -125,6 +131,8 @@ def update_study(study_id, changes, *, actor, source, expected_tags=None):
             if name in changes:
                 setattr(study, name, changes[name])
         _check_policy(study, study.scale_set)
+        if "criticality" in changes:
+            fmeca.apply_study_settings(study, changes["criticality"], study.scale_set)
         if "tags" in changes:
             _set_tags(study, changes["tags"])
         if "external_ref" in changes:
@@ -314,6 +322,7 @@ def study_views(studies, with_pareto=False):
                 "status": study.status,
                 "action_threshold": study.action_threshold,
                 "severity_threshold": study.severity_threshold,
+                "criticality": fmeca.study_settings_view(study),
                 "risk": risk,
                 "version": study.version,
                 "risk_revision": study.risk_revision,
