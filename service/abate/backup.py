@@ -33,15 +33,19 @@ def _copy(source_path, target_path):
         source.close()
 
 
-def _pg_command(url, program, *args):
-    """The pg_dump/pg_restore command line for a postgresql:// URL; the schema comes from search_path."""
+def _pg_command(url, program, *args, schema=True):
+    """The pg_dump/pg_restore command line for a postgresql:// URL; the schema comes from search_path.
+
+    A restore names no schema: the dump holds only the one it was taken of, with its CREATE SCHEMA,
+    which pg_restore --schema would leave out.
+    """
     parts = urlsplit(url)
     command = [program, "--host", parts.hostname or "localhost", "--port", str(parts.port or 5432)]
     if parts.username:
         command += ["--username", unquote(parts.username)]
     command += ["--dbname", unquote(parts.path.lstrip("/"))]
     options = dict(parse_qsl(parts.query)).get("options", "")
-    if "search_path=" in options:
+    if schema and "search_path=" in options:
         command += ["--schema", options.split("search_path=")[1].split()[0]]
     return command + list(args)
 
@@ -73,7 +77,9 @@ def restore(url, path, force=False):
         target.parent.mkdir(parents=True, exist_ok=True)
         _copy(path, target)
         return None
-    command = _pg_command(url, "pg_restore", "--no-owner", *(["--clean", "--if-exists"] if force else []), str(path))
+    command = _pg_command(
+        url, "pg_restore", "--no-owner", *(["--clean", "--if-exists"] if force else []), str(path), schema=False
+    )
     _run(command)
     return command
 

@@ -27,6 +27,7 @@ SETTINGS = {
     "REMINDER_SKIP_WEEKENDS": (False, "true: record no digests on Saturdays and Sundays (pending mail still goes)."),
     "SMTP_HOST": ("", "SMTP server for reminders; empty: mail goes into the Maildir instead."),
     "SMTP_PORT": (587, "SMTP server port."),
+    "SMTP_TIMEOUT": (30, "Seconds the SMTP server has to connect and to answer each command."),
     "SMTP_USER": ("", "SMTP login name; empty: no login."),
     "SMTP_PASSWORD": ("", "SMTP password."),
     "SMTP_STARTTLS": (True, "true: upgrade the SMTP connection with STARTTLS, verifying the server's certificate."),

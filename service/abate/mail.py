@@ -15,7 +15,6 @@ from abate.domain.reminders import DeliveryFailed
 from abate.domain.studies import CAUTION
 
 # Seconds an SMTP connection or command may take before the attempt counts as failed.
-SMTP_TIMEOUT = 30
 _SECTION_TITLES = {
     "overdue": "Overdue",
     "due_soon": "Due within {due_soon_days} days",
@@ -153,7 +152,7 @@ class SmtpPostman:
 
     def _connect(self):
         config = self._config
-        smtp = smtplib.SMTP(config["SMTP_HOST"], int(config["SMTP_PORT"]), timeout=SMTP_TIMEOUT)
+        smtp = smtplib.SMTP(config["SMTP_HOST"], int(config["SMTP_PORT"]), timeout=float(config["SMTP_TIMEOUT"]))
         try:
             if config["SMTP_STARTTLS"]:
                 # The default context verifies the certificate and the host name; no plain-text fallback.

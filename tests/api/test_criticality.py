@@ -21,6 +21,19 @@ def _patch(client, url, body):
     return client.patch(url, json=body, headers={"If-Match": client.get(url).headers["ETag"]})
 
 
+def _design_change(client, mode_id, title):
+    """Open a design-change action on the mode; return its JSON."""
+    body = {
+        "title": title,
+        "kind": "design_change",
+        "owner": {"name": "Ola Brandt", "email": "ola@example.com"},
+        "due_date": "2030-01-01",
+    }
+    response = client.post(f"/v1/modes/{mode_id}/actions", json=body)
+    assert response.status_code == 201, response.get_json()
+    return response.get_json()
+
+
 def _worked_item(client, study_id):
     """MIL-STD-1629A Task 102 worked item: lambda_p 2e-5 /h, t 100 h; modes (alpha, beta, class)
     (0.5, 1.0, II), (0.3, 0.1, II), (0.2, 0, IV)."""
@@ -163,15 +176,7 @@ def test_the_report_is_409_while_switched_off_and_modes_show_no_figures(client):
 def test_a_closure_with_a_new_rate_recomputes_cm_and_reopen_restores_it(client):
     study = _study(client)
     first, _, _ = _worked_item(client, study["id"])
-    action = client.post(
-        f"/v1/modes/{first['id']}/actions",
-        json={
-            "title": "Qualified part",
-            "kind": "design_change",
-            "owner": {"name": "Ola Brandt", "email": "ola@example.com"},
-            "due_date": "2030-01-01",
-        },
-    ).get_json()
+    action = _design_change(client, first["id"], "Qualified part")
     closed = client.post(
         f"/v1/actions/{action['id']}/close",
         json={"result": {"occurrence": 2, "failure_rate": 5e-6}, "evidence": EVIDENCE, "verified_by": "Quality lab"},
@@ -247,3 +252,18 @@ def test_the_matrix_is_drawn_as_svg_and_png(client):
     png = client.get(f"/v1/studies/{study['id']}/criticality.png")
     assert png.status_code == 200 and Image.open(io.BytesIO(png.data)).format == "PNG"
     assert client.get(f"/v1/studies/{make_study(client)['id']}/criticality.svg").status_code == 409
+
+
+def test_the_closed_action_shows_the_verified_rate_and_ratio(client):
+    study = _study(client)
+    first, _, _ = _worked_item(client, study["id"])
+    action = _design_change(client, first["id"], "Derate the coil")
+    result = {"failure_rate": 8, "failure_rate_unit": "per_million_hours", "mode_ratio": 0.4}
+    closed = client.post(f"/v1/actions/{action['id']}/close", json={"result": result, "evidence": EVIDENCE})
+    assert closed.status_code == 200, closed.get_json()
+    shown = closed.get_json()["result"]
+    assert shown["failure_rate"] == 8 and shown["failure_rate_unit"] == "per_million_hours"
+    assert shown["mode_ratio"] == 0.4
+    mode = client.get(f"/v1/modes/{first['id']}").get_json()
+    # 1.0 * 0.4 * 8e-6 * 100 = 3.2e-4 (MIL-STD-1629A Task 102)
+    assert mode["fmeca"]["mode_criticality"] == pytest.approx(3.2e-4)

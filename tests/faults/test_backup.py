@@ -2,11 +2,14 @@
 
 import datetime
 import os
+import shutil
 import sqlite3
 import subprocess
 import sys
 import threading
+import uuid
 from pathlib import Path
+from urllib.parse import parse_qsl, urlsplit, urlunsplit
 
 import pytest
 import requests
@@ -117,3 +120,52 @@ def test_restore_refuses_a_database_that_holds_tables_unless_forced(tmp_path, sq
     assert _abate(sqlite_url, "db", "restore", "--force", str(copy)).returncode == 0
     again = _abate(sqlite_url, "db", "backup", str(copy), check=False)
     assert again.returncode != 0 and "exists" in again.stderr
+
+
+def _pg_rows(url):
+    """Every row of every table in the URL's schema, ordered, per table."""
+    import psycopg2
+
+    parts = urlsplit(url)
+    options = dict(parse_qsl(parts.query)).get("options")
+    connection = psycopg2.connect(url.split("?")[0], options=options)
+    try:
+        with connection.cursor() as cursor:
+            rows = {}
+            for model in models.ALL_MODELS:
+                cursor.execute(f"SELECT * FROM {model._meta.table_name} ORDER BY 1")
+                rows[model._meta.table_name] = cursor.fetchall()
+            return rows
+    finally:
+        connection.close()
+
+
+def test_a_postgresql_backup_restores_every_row_into_a_fresh_database(tmp_path, database_url, client):
+    import psycopg2
+
+    if not database_url.startswith("postgresql"):
+        pytest.skip("the SQLite case is the test above")
+    if shutil.which("pg_dump") is None or shutil.which("pg_restore") is None:
+        pytest.skip("pg_dump/pg_restore are not on PATH (Debian's postgresql-client has them)")
+    _fill(client)
+    close_pool()
+    dump = tmp_path / "abate.dump"
+    assert "backup written" in _abate(database_url, "db", "backup", str(dump)).stdout
+    # A fresh database on the same server; the dump recreates the schema the source used.
+    parts = urlsplit(database_url)
+    fresh_name = f"restore_{uuid.uuid4().hex[:10]}"
+    admin = psycopg2.connect(database_url.split("?")[0])
+    admin.autocommit = True
+    with admin.cursor() as cursor:
+        cursor.execute(f"CREATE DATABASE {fresh_name}")
+    fresh = urlunsplit(parts._replace(path=f"/{fresh_name}"))
+    try:
+        restoring = _abate(fresh, "db", "restore", str(dump), check=False)
+        assert restoring.returncode == 0, restoring.stderr
+        restored = _pg_rows(fresh)
+        assert restored == _pg_rows(database_url)
+        assert len(restored["failure_mode"]) == 9 and restored["reminder"] and restored["risk_event"]
+    finally:
+        with admin.cursor() as cursor:
+            cursor.execute(f"DROP DATABASE IF EXISTS {fresh_name} WITH (FORCE)")
+        admin.close()

@@ -268,3 +268,27 @@ def test_starttls_delivers_once_the_certificate_verifies(
 
     assert [item["recipient"] for item in report.sent] == [KAI]
     assert [item.rcpt_tos for item in starttls_server.received] == [[KAI]]
+
+
+def test_a_mail_server_that_never_answers_is_cut_off_and_the_reminders_wait(open_action, run_at, mail_app, client):
+    import socket
+
+    # A server that accepts the connection and never sends its greeting (RFC 5321 section 4.2 expects one).
+    silent = socket.socket()
+    silent.bind(("127.0.0.1", 0))
+    silent.listen()
+    mail_app.config.update(SMTP_PORT=silent.getsockname()[1], SMTP_TIMEOUT=0.5)
+    try:
+        _two_overdue_owners(open_action)
+        report = run_at(MORNING)
+        assert report.sent == [] and [item["recipient"] for item in report.retrying] == [KAI, LENA]
+        rows = _rows()
+        assert {row.status for row in rows.values()} == {"pending"}
+        assert all(
+            "timed out" in row.last_error.lower() or "timeout" in row.last_error.lower() for row in rows.values()
+        )
+        # The API answers meanwhile: the reminders are listed as waiting for their retry.
+        listed = client.get("/v1/reminders", query_string={"status": "pending"}).get_json()["items"]
+        assert sorted(item["recipient"] for item in listed) == [KAI, LENA]
+    finally:
+        silent.close()

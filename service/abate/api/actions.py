@@ -72,7 +72,10 @@ class ActionSchema(ma.Schema):
     )
     external_ref = ma.fields.Nested(ExternalRefSchema, allow_none=True)
     result = ma.fields.Nested(
-        TargetSchema, dump_only=True, allow_none=True, metadata={"description": "Verified ratings"}
+        "ClosureResultSchema",
+        dump_only=True,
+        allow_none=True,
+        metadata={"description": "Verified ratings (and a verified failure rate or mode ratio)"},
     )
     rating_raised = ma.fields.Boolean(dump_only=True, metadata={"description": "The verified result raised a rating"})
     evidence = ma.fields.String(dump_only=True)

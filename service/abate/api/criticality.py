@@ -82,8 +82,7 @@ class ModeInputsSchema(VerifiedRateSchema):
         metadata={"description": "t: the operating time, in operating_time_unit"},
     )
     operating_time_unit = ma.fields.String(
-        allow_none=True,
-        validate=ma.validate.OneOf(TIME_UNITS), metadata={"description": "hours (default) or cycles"}
+        allow_none=True, validate=ma.validate.OneOf(TIME_UNITS), metadata={"description": "hours (default) or cycles"}
     )
 
 

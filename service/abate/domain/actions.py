@@ -4,7 +4,7 @@ import peewee as pw
 
 from abate.db import database
 from abate.domain import events as risk_events
-from abate.domain import fmeca
+from abate.domain import fmeca, reliability
 from abate.domain.clock import local_today, utcnow
 from abate.domain.modes import apply_ratings, locked_active_mode, ratings_of
 from abate.domain.references import reference_view, save_referenced, set_reference
@@ -336,6 +336,19 @@ def _ratings_or_none(action, prefix):
     return values if any(value is not None for value in values.values()) else None
 
 
+def _result_view(action):
+    """The verified ratings and, where the closure verified them, the new failure rate and mode ratio."""
+    result = _ratings_or_none(action, "result")
+    if result is None:
+        return None
+    if action.result_failure_rate is not None:
+        rate = reliability.from_per_hour(action.result_failure_rate, action.result_failure_rate_unit)
+        result.update(failure_rate=fmeca.rounded(rate), failure_rate_unit=action.result_failure_rate_unit)
+    if action.result_mode_ratio is not None:
+        result["mode_ratio"] = action.result_mode_ratio
+    return result
+
+
 def action_views(actions):
     """The actions as plain data for the API; overdue is judged in each study's time zone."""
     actions = list(actions)
@@ -360,7 +373,7 @@ def action_views(actions):
                 "days_overdue": days_overdue(action, today),
                 "target": _ratings_or_none(action, "target"),
                 "external_ref": reference_view(action),
-                "result": _ratings_or_none(action, "result"),
+                "result": _result_view(action),
                 "rating_raised": bool(closure and closure.rating_raised),
                 "evidence": action.evidence,
                 "verified_by": action.verified_by,

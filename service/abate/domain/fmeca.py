@@ -23,7 +23,7 @@ CM_INPUTS = ("failure_rate", "mode_ratio", "effect_probability", "operating_time
 SIGNIFICANT_DIGITS = 12
 
 
-def _rounded(value):
+def rounded(value):
     """A converted figure without the float noise of the unit conversion (12 significant digits)."""
     if value is None or value == 0 or not math.isfinite(value):
         return value
@@ -183,7 +183,7 @@ def inputs_view(mode):
     """The mode's inputs as the API shows them: the failure rate in the unit it was entered in."""
     rate = mode.failure_rate
     return {
-        "failure_rate": None if rate is None else _rounded(reliability.from_per_hour(rate, mode.failure_rate_unit)),
+        "failure_rate": None if rate is None else rounded(reliability.from_per_hour(rate, mode.failure_rate_unit)),
         "failure_rate_unit": mode.failure_rate_unit,
         "mode_ratio": mode.mode_ratio,
         "effect_probability": mode.effect_probability,
