@@ -267,3 +267,15 @@ def test_the_closed_action_shows_the_verified_rate_and_ratio(client):
     mode = client.get(f"/v1/modes/{first['id']}").get_json()
     # 1.0 * 0.4 * 8e-6 * 100 = 3.2e-4 (MIL-STD-1629A Task 102)
     assert mode["fmeca"]["mode_criticality"] == pytest.approx(3.2e-4)
+
+
+def test_a_mode_shows_its_reliability_and_mtbf(client):
+    study = _study(client)
+    mode = make_mode(client, study["id"], failure_rate=2e-5, operating_time=1000)
+    # lambda 2e-5 /h: R(1000 h) = exp(-0.02) = 0.980199 and MTBF 50,000 h (MIL-HDBK-338B, constant rate)
+    assert mode["fmeca"]["reliability"] == pytest.approx(0.980199, abs=1e-6)
+    assert mode["fmeca"]["mean_time_between_failures"] == pytest.approx(50_000)
+    assert mode["fmeca"]["mode_criticality"] is None and mode["fmeca"]["missing"] == [
+        "mode_ratio",
+        "effect_probability",
+    ]

@@ -93,6 +93,12 @@ class ModeFiguresSchema(ma.Schema):
     mode_criticality = ma.fields.Float(allow_none=True, metadata={"description": "Cm = beta alpha lambda_p t"})
     share = ma.fields.Float(allow_none=True, metadata={"description": "Share of the item's failure probability"})
     level = ma.fields.String(allow_none=True, metadata={"description": "A (frequent) .. E (extremely unlikely)"})
+    reliability = ma.fields.Float(
+        allow_none=True, metadata={"description": "R(t) = exp(-lambda_p t): the item surviving the operating time"}
+    )
+    mean_time_between_failures = ma.fields.Float(
+        allow_none=True, metadata={"description": "1 / lambda_p, in the failure rate's basis (hours or cycles)"}
+    )
     missing = ma.fields.List(ma.fields.String(), metadata={"description": f"Inputs Cm still needs: {CM_INPUTS}"})
     warnings = ma.fields.List(ma.fields.String())
 

@@ -240,6 +240,21 @@ def check_item_ratios(study, mode):
         ) from error
 
 
+def _reliability_figures(mode):
+    """The item's survival probability over the operating time, R(t) = exp(-lambda t), and its mean
+    time (hours or cycles) between failures, 1/lambda, for a constant failure rate."""
+    rate, time = mode.failure_rate, mode.operating_time
+    usable = (
+        rate is not None
+        and time is not None
+        and reliability.RATE_BASIS[mode.failure_rate_unit] == mode.operating_time_unit
+    )
+    return {
+        "reliability": reliability.reliability(rate, time) if usable else None,
+        "mean_time_between_failures": None if rate in (None, 0) else reliability.mtbf_hours(rate),
+    }
+
+
 def mode_figures(mode, classes, sums):
     """A mode's severity class, Cm, share and level (classes: class_by_rating; sums: ratio_sums)."""
     alpha = mode.mode_ratio
@@ -251,6 +266,7 @@ def mode_figures(mode, classes, sums):
         # The mode's share of the item's failure probability is its failure mode ratio (Task 102).
         "share": alpha,
         "level": None if alpha is None else criticality.level_for_share(alpha),
+        **_reliability_figures(mode),
         "missing": [name for name in CM_INPUTS if getattr(mode, name) is None],
         "warnings": [warning] if warning else [],
     }
