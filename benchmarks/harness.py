@@ -29,6 +29,8 @@ WRITER = {"actor": "benchmark", "source": "benchmark"}
 OWNER = {"name": "Invented Owner", "email": "owner@example.com"}
 # One seed for every generator, so that two runs write the same invented data.
 SEED = 20251201
+# Far above any rate a benchmark reaches: the per-token check still runs on every request, it never refuses one.
+RATE_LIMIT_PER_MINUTE = 10**9
 
 
 @dataclass(frozen=True)
@@ -88,7 +90,14 @@ def fresh_database(database_url=None):
 def abate_app(database_url, **settings):
     """The Abate application on database_url with settings, migrated; its connections are closed on the way out."""
     with tempfile.TemporaryDirectory(prefix="abate-instance-") as instance:
-        app = create_app({"DATABASE_URL": database_url, "INSTANCE_PATH": instance, **settings})
+        app = create_app(
+            {
+                "DATABASE_URL": database_url,
+                "INSTANCE_PATH": instance,
+                "RATE_LIMIT_PER_MINUTE": RATE_LIMIT_PER_MINUTE,
+                **settings,
+            }
+        )
         with db.database.connection_context():
             db.upgrade()
         try:

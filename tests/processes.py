@@ -26,6 +26,11 @@ def abate_environment(url, tmp_path, **settings):
     }
 
 
+def mail_settings(smtp_server):
+    """The settings that send reminders to a test SMTP server on loopback, without TLS, dated in UTC."""
+    return {"SMTP_HOST": "127.0.0.1", "SMTP_PORT": smtp_server.port, "SMTP_STARTTLS": 0, "REMINDER_TIMEZONE": "UTC"}
+
+
 def run_abate(env, *args, check=True):
     """Run `abate ARGS` to completion; return the completed process."""
     return subprocess.run([ABATE, *args], env=env, cwd=ROOT, capture_output=True, text=True, timeout=60, check=check)
@@ -93,12 +98,13 @@ class AbateProcess:
 
 
 class Served(AbateProcess):
-    """`abate serve --no-scheduler` on a free loopback port, returned once /readyz answers."""
+    """`abate serve` on a free loopback port (with the scheduler in it, or not), returned once /readyz answers."""
 
-    def __init__(self, env, log_path):
+    def __init__(self, env, log_path, scheduler=False):
         port = free_port()
         self.base = f"http://127.0.0.1:{port}"
-        super().__init__(env, "serve", "--port", str(port), "--no-scheduler", log_path=log_path)
+        options = [] if scheduler else ["--no-scheduler"]
+        super().__init__(env, "serve", "--port", str(port), *options, log_path=log_path)
         deadline = time.monotonic() + 30
         while not answers(f"{self.base}/readyz"):
             assert self.running() and time.monotonic() < deadline, f"abate serve did not come up:\n{self.output}"
@@ -115,9 +121,9 @@ class Processes:
     def _log(self):
         return self._tmp_path / f"process-{len(self._started)}.log"
 
-    def serve(self, env):
-        """Start a served process."""
-        served = Served(env, self._log())
+    def serve(self, env, scheduler=False):
+        """Start a served process; with scheduler, the reminder scheduler runs in it too."""
+        served = Served(env, self._log(), scheduler)
         self._started.append(served)
         return served
 

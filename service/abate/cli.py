@@ -1,4 +1,5 @@
-"""The `abate` command: serve, database upgrades, tokens, the demo and the OpenAPI document."""
+"""The `abate` command: serve, the scheduler, reminders, database upgrades and backups, tokens, the demo,
+import and the OpenAPI document."""
 
 import contextlib
 import json

@@ -12,7 +12,7 @@ DEMO_TOKEN_NAME = "demo loader"
 FIRST_STEP_AT = datetime.time(8, 0)
 STEP_SPACING = datetime.timedelta(minutes=5)
 # These changes take no effective_at: they happen when the loader runs, so the scenario puts them on its last day.
-UNDATED_STEPS = ("move_due_date", "cancel_action", "retire_mode")
+UNDATED_STEPS = ("move_due_date", "cancel_action", "retire_mode", "observe")
 
 
 def scenario_start(scenario, today):
@@ -84,6 +84,15 @@ class _Replay:
     def retire_mode(self, step, moment):
         """A mode that can no longer happen taken out of the study, today."""
         self.api.modes.retire(self.api.modes.get(self.modes[step["mode"]]), step["reason"])
+
+    def observe(self, step, moment):
+        """Failures the plant's systems counted over a past period of the scenario, reported today."""
+        fields = {name: value for name, value in step["observation"].items() if not name.endswith("_day")}
+        period = {
+            "period_start": self._day(step["observation"]["period_start_day"]),
+            "period_end": self._day(step["observation"]["period_end_day"]),
+        }
+        self.api.observations.record(self.modes[step["mode"]], **fields, **period)
 
 
 def load_scenario(api, scenario, today=None):

@@ -19,7 +19,9 @@ _SECTION_TITLES = {
     "overdue": "Overdue",
     "due_soon": "Due within {due_soon_days} days",
     "escalated": "Overdue by more than {escalation_days} days in studies you own",
+    "occurrence_drift": "Closed actions that observed failures no longer bear out",
 }
+_DRIFT_COLUMNS = ("Action", "Study", "Failure mode", "Occurrence", "Data implies", "Rate", "Link")
 _COLUMNS = ("Action", "Study", "Failure mode", "RPN", "Priority", "Due", "Days overdue", "Owner", "Link")
 
 
@@ -35,6 +37,7 @@ def subject(payload):
         (len(payload["overdue"]), "overdue"),
         (len(payload["due_soon"]), "due soon"),
         (len(payload["escalated"]), "escalated to you"),
+        (len(payload.get("occurrence_drift", [])), "not borne out by data"),
     ]
     summary = ", ".join(f"{count} {label}" for count, label in counts if count)
     # Short enough to stay on the Subject line: a folded one-line value reads back with a leading space.
@@ -43,8 +46,12 @@ def subject(payload):
 
 def _sections(payload):
     for section, title in _SECTION_TITLES.items():
-        if payload[section]:
+        if payload.get(section):
             yield section, title.format(**payload), payload[section]
+
+
+def _rate(line):
+    return f"{line['rate']:.3g} {line['rate_basis'].replace('_', ' ')}"
 
 
 def _days(count):
@@ -72,6 +79,13 @@ def text_body(payload):
         for line in entries:
             lines.append(f"- {line['title']}")
             lines.append(f"  Study: {line['study_title']} | Failure mode: {line['failure_mode']}")
+            if section == "occurrence_drift":
+                lines.append(
+                    f"  Rated occurrence {line['occurrence']}; observed failures imply {line['implied_occurrence']}"
+                    f" ({_rate(line)})"
+                )
+                lines += [f"  {line['link']}", ""]
+                continue
             lines.append(f"  RPN {line['rpn']}, priority {line['priority']}, due {line['due_date']}, {_timing(line)}")
             if section == "escalated":
                 lines.append(f"  Owner: {line['owner_name']} <{line['owner_email']}>")
@@ -80,28 +94,34 @@ def text_body(payload):
     return "\n".join(lines)
 
 
+def _html_cells(section, line):
+    """The escaped cells of one line of a section's table, in its columns' order."""
+    escape = html.escape
+    link = f'<a href="{escape(line["link"])}">{escape(line["link"])}</a>'
+    named = [escape(line["title"]), escape(line["study_title"]), escape(line["failure_mode"])]
+    if section == "occurrence_drift":
+        return [*named, str(line["occurrence"]), str(line["implied_occurrence"]), escape(_rate(line)), link]
+    cells = [*named, str(line["rpn"]), escape(line["priority"]), escape(line["due_date"]), str(line["days_overdue"])]
+    if section == "escalated":
+        cells.append(f"{escape(line['owner_name'])} &lt;{escape(line['owner_email'])}&gt;")
+    return [*cells, link]
+
+
+def _html_columns(section):
+    if section == "occurrence_drift":
+        return _DRIFT_COLUMNS
+    return [column for column in _COLUMNS if column != "Owner" or section == "escalated"]
+
+
 def html_body(payload):
     """The HTML alternative; every text that came from a user is escaped."""
     escape = html.escape
     parts = [f"<!DOCTYPE html>\n<html><body>\n<p>Hello {escape(payload['name'])},</p>"]
     for section, title, entries in _sections(payload):
-        columns = [column for column in _COLUMNS if column != "Owner" or section == "escalated"]
         parts.append(f"<h2>{escape(title)} ({len(entries)})</h2>")
-        parts.append("<table><tr>" + "".join(f"<th>{column}</th>" for column in columns) + "</tr>")
+        parts.append("<table><tr>" + "".join(f"<th>{column}</th>" for column in _html_columns(section)) + "</tr>")
         for line in entries:
-            cells = [
-                escape(line["title"]),
-                escape(line["study_title"]),
-                escape(line["failure_mode"]),
-                str(line["rpn"]),
-                escape(line["priority"]),
-                escape(line["due_date"]),
-                str(line["days_overdue"]),
-            ]
-            if section == "escalated":
-                cells.append(f"{escape(line['owner_name'])} &lt;{escape(line['owner_email'])}&gt;")
-            cells.append(f'<a href="{escape(line["link"])}">{escape(line["link"])}</a>')
-            parts.append("<tr>" + "".join(f"<td>{cell}</td>" for cell in cells) + "</tr>")
+            parts.append("<tr>" + "".join(f"<td>{cell}</td>" for cell in _html_cells(section, line)) + "</tr>")
         parts.append("</table>")
     parts.append(f"<p>{escape(_footer(payload['recipient']))}</p>\n<p><em>{escape(CAUTION)}</em></p>\n</body></html>\n")
     return "\n".join(parts)

@@ -35,12 +35,17 @@ class AppMetrics:
             registry=self.registry,
         )
         self.registry.register(DatabaseFigures())
+        # (route, method, status) -> its counter and histogram; as few as the labels allow, found without a lock.
+        self._series = {}
 
     def observe_request(self, route, method, status, seconds):
         """Count one answered request under its route template, method and status."""
-        labels = (route or UNMATCHED_ROUTE, method if method in KNOWN_METHODS else "other", str(status))
-        self.requests.labels(*labels).inc()
-        self.latency.labels(*labels).observe(seconds)
+        labels = (route or UNMATCHED_ROUTE, method if method in KNOWN_METHODS else "other", status)
+        series = self._series.get(labels)
+        if series is None:
+            series = self._series[labels] = (self.requests.labels(*labels), self.latency.labels(*labels))
+        series[0].inc()
+        series[1].observe(seconds)
 
     def exposition(self):
         """Every metric in the text exposition format."""

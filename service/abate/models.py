@@ -1,4 +1,4 @@
-"""Peewee models: scale sets, API tokens, studies, failure modes and their risk events."""
+"""Peewee models: scale sets, tokens, studies, modes, actions, risk events, observations and the outboxes."""
 
 import peewee as pw
 
@@ -27,6 +27,8 @@ class ScaleSet(BaseModel):
     detection_max = pw.SmallIntegerField()
     default_action_threshold = pw.IntegerField()
     default_severity_threshold = pw.SmallIntegerField()
+    # The basis of the occurrence levels' rate bands (domain.rate_bands.RATE_BASES); null: no bands.
+    occurrence_rate_basis = pw.CharField(max_length=32, null=True)
     version = pw.IntegerField(default=1)
     created_at = pw.DateTimeField(default=utcnow)
     updated_at = pw.DateTimeField(default=utcnow)
@@ -55,6 +57,8 @@ class ScaleLevel(BaseModel):
     value = pw.SmallIntegerField()
     label = pw.CharField(max_length=200)
     criteria = pw.TextField(default="")
+    # Occurrence levels of a banded scale: the failure rate (in the set's basis) at which the level starts.
+    rate_from = pw.DoubleField(null=True)
 
     class Meta:
         indexes = ((("scale_set", "dimension", "value"), True),)
@@ -115,6 +119,13 @@ class Study(BaseModel):
     # map from severity ratings to classes I..IV as JSON ({"I": [9, 10], ...}).
     criticality_enabled = pw.BooleanField(default=False)
     severity_classes = pw.TextField(null=True)
+    # How observed failures are judged: the window in days, the confidence of the upper bound, which
+    # estimate (upper_bound or observed) picks the level, and the study's own rate bands as JSON
+    # ({"rate_basis": ..., "levels": [{"value", "rate_from"}]}; null: the scale set's).
+    observation_window_days = pw.IntegerField(default=365)
+    observation_confidence = pw.DoubleField(default=0.9)
+    observation_estimate = pw.CharField(max_length=16, default="upper_bound")
+    occurrence_bands = pw.TextField(null=True)
     version = pw.IntegerField(default=1)
     created_at = pw.DateTimeField(default=utcnow)
     updated_at = pw.DateTimeField(default=utcnow)
@@ -168,6 +179,8 @@ class FailureMode(BaseModel):
     created_at = pw.DateTimeField(default=utcnow)
     updated_at = pw.DateTimeField(default=utcnow)
     retired_at = pw.DateTimeField(null=True)
+    # Since when observed data has pointed above the occurrence a closed action claimed (null: not now).
+    occurrence_drift_since = pw.DateTimeField(null=True)
 
     class Meta:
         indexes = (
@@ -272,6 +285,8 @@ class RiskEvent(BaseModel):
     action_due_date = pw.DateField(null=True)
     # True when a closure's verified ratings are worse than before (the fix revealed more).
     rating_raised = pw.BooleanField(default=False)
+    # The observations a re-rating rests on, as a JSON list of ids (null for other changes).
+    observation_ids = pw.TextField(null=True)
     # Running sums of RPN change by cause since the study began; their sum is study_total_rpn.
     change_new_modes = pw.IntegerField(default=0)
     change_rerating = pw.IntegerField(default=0)
@@ -283,6 +298,48 @@ class RiskEvent(BaseModel):
             (("study", "occurred_at"), False),
             (("study", "study_revision"), True),
         )
+
+
+class Observation(BaseModel):
+    """Failures of one mode counted by a maintenance or quality system over an exposure and a period."""
+
+    mode = pw.ForeignKeyField(FailureMode, backref="observations", on_delete="RESTRICT")
+    study = pw.ForeignKeyField(Study, backref="observations", on_delete="RESTRICT")
+    failures = pw.IntegerField()
+    exposure = pw.DoubleField()
+    # units (produced) or hours (run)
+    exposure_unit = pw.CharField(max_length=16)
+    period_start = pw.DateField()
+    period_end = pw.DateField()
+    source_system = pw.CharField(max_length=100)
+    record_key = pw.CharField(max_length=200)
+    note = pw.TextField(default="")
+    recorded_by = pw.CharField(max_length=200)
+    recorded_at = pw.DateTimeField(default=utcnow)
+
+    class Meta:
+        indexes = (
+            (("source_system", "record_key"), True),
+            (("mode", "period_end"), False),
+        )
+
+
+class DriftNotice(BaseModel):
+    """A note for an action owner's next digest: observed data no longer bears out their closed action."""
+
+    mode = pw.ForeignKeyField(FailureMode, backref="drift_notices", on_delete="CASCADE")
+    action = pw.ForeignKeyField(CorrectiveAction, backref="drift_notices", on_delete="CASCADE")
+    recipient = pw.CharField(max_length=320)
+    name = pw.CharField(max_length=200)
+    # The digest line as JSON, fixed when raised.
+    payload = pw.TextField()
+    raised_at = pw.DateTimeField(default=utcnow)
+    # The digest that carried it; null until an owner's digest is recorded.
+    digest_key = pw.CharField(max_length=400, null=True)
+
+    class Meta:
+        table_name = "drift_notice"
+        indexes = ((("digest_key", "recipient"), False),)
 
 
 class Reminder(BaseModel):
@@ -392,6 +449,8 @@ ALL_MODELS = [
     FailureMode,
     CorrectiveAction,
     RiskEvent,
+    Observation,
+    DriftNotice,
     Reminder,
     OwnerPreference,
     WebhookSubscription,

@@ -2,8 +2,11 @@
 
 Peewee renders a query's SQL anew on every execution, which for a model of twenty columns costs more
 than the database takes to answer a lookup by key. A PreparedSelect keeps the rendered SQL and the
-fields it selects, and turns each row into a model instance as peewee's own cursor wrapper does.
+fields it selects, and turns each row into a model instance as peewee's own cursor wrapper does, only
+faster (RowBuilder); fetch_all() does the same for any other query of whole rows.
 """
+
+import peewee
 
 from abate.db import database
 
@@ -42,31 +45,94 @@ class PreparedSelect:
             positions = [index for marker in markers for index, param in enumerate(params) if param == marker]
             if len(positions) != len(markers):
                 raise ValueError("each value of a prepared SELECT must reach its SQL as exactly one parameter")
-            selected = query._returning
-            if any(getattr(field, "model", None) is not self.model for field in selected):
-                raise ValueError("a prepared SELECT selects whole rows of its model, field by field")
             # Two threads may both render the same SQL; either result serves.
-            rendered = self._rendered[key] = (sql, params, positions, [field.name for field in selected])
+            rendered = self._rendered[key] = (sql, params, positions, RowBuilder(self.model, query._returning))
         return rendered
 
     def rows(self, *values):
         """The model instances the SELECT yields for these values."""
-        sql, params, positions, names = self._render(values)
+        sql, params, positions, builder = self._render(values)
         bound = list(params)
         for position, value in zip(positions, values, strict=True):
             bound[position] = value
-        fields = self.model._meta.fields
-        found = []
-        for row in database.execute_sql(sql, bound).fetchall():
-            instance = self.model(
-                __no_default__=1,
-                **{name: fields[name].python_value(value) for name, value in zip(names, row, strict=True)},
-            )
-            instance._dirty.clear()
-            found.append(instance)
-        return found
+        return builder.instances(database.execute_sql(sql, bound).fetchall())
 
     def first(self, *values):
         """The first instance the SELECT yields for these values, or None."""
         found = self.rows(*values)
         return found[0] if found else None
+
+
+# Field kinds whose python_value returns a value of this type as it is (peewee's own adapt methods).
+_PASSED_AS_THEY_ARE = (
+    (peewee.IntegerField, int),
+    (peewee.FloatField, float),
+    (peewee.CharField, str),
+    (peewee.TextField, str),
+)
+
+
+def _unchanged_types(field):
+    """The types of value that field.python_value returns unchanged: None always, one more for plain kinds."""
+    if type(field).python_value is not peewee.Field.python_value:
+        return ()
+    for kind, value_type in _PASSED_AS_THEY_ARE:
+        if isinstance(field, kind) and type(field).adapt is kind.adapt:
+            return (type(None), value_type)
+    return (type(None),)
+
+
+def _buildable(model, selected):
+    """Whether selected are plain fields of model (converted by peewee as usual) and model has no __init__."""
+    return model.__init__ is peewee.Model.__init__ and all(
+        isinstance(field, peewee.Field) and field.model is model and field._coerce for field in selected
+    )
+
+
+class RowBuilder:
+    """Turns rows of the selected fields into model instances, as peewee's cursor wrapper does, minus its setattr.
+
+    peewee builds an instance with one descriptor call per column; for rows straight from the database
+    (foreign keys as plain ids) that only stores each converted value, which this does in one step.
+    """
+
+    def __init__(self, model, selected):
+        if not _buildable(model, selected):
+            raise ValueError("rows are built from whole rows of their model, selected field by field and converted")
+        self.model = model
+        self.columns = [(field.name, _unchanged_types(field), field.python_value) for field in selected]
+
+    def instances(self, rows):
+        """A model instance for each row, clean (no field marked dirty)."""
+        model, columns = self.model, self.columns
+        found = []
+        for row in rows:
+            instance = object.__new__(model)
+            instance.__data__ = {
+                name: value if type(value) in unchanged else convert(value)
+                for (name, unchanged, convert), value in zip(columns, row, strict=True)
+            }
+            instance._dirty = set()
+            instance.__rel__ = {}
+            found.append(instance)
+        return found
+
+
+def _whole_rows_of_model(query):
+    return (
+        isinstance(query, peewee.ModelSelect)
+        and query._row_type in (None, peewee.ROW.MODEL)
+        and not query._joins
+        and not getattr(query, "_load_tree", None)
+        and len(query._from_list) == 1
+        and query._from_list[0] is query.model
+        and _buildable(query.model, query._returning)
+    )
+
+
+def fetch_all(query):
+    """list(query); a plain SELECT of whole rows of one model has its instances built by a RowBuilder."""
+    if not _whole_rows_of_model(query):
+        return list(query)
+    sql, params = query.sql()
+    return RowBuilder(query.model, query._returning).instances(query._database.execute_sql(sql, params).fetchall())

@@ -127,6 +127,14 @@ def test_the_demo_history_falls_in_every_study(tmp_path):
             assert points[-1]["in_progress"] and sum(point["change"]["actions"] for point in points) < 0
             chart = client.get(f"/v1/studies/{study_id}/history.svg")
             assert chart.status_code == 200 and chart.mimetype == "image/svg+xml"
+        # The plant's counts: one closed prevention action is not borne out by data, another is.
+        evidence = client.get("/v1/studies/1/occurrence-evidence").get_json()["items"]
+        assert [(item["status"], item["drift"]) for item in evidence] == [
+            ("suggests_change", True),
+            ("consistent", False),
+        ]
+        checks = [item["data_check"] for item in client.get("/v1/studies/1/actions/effect").get_json()["items"]]
+        assert checks.count("not_confirmed_by_data") == 1 and "consistent_with_data" in checks
     finally:
         close_pool()
 

@@ -1,4 +1,4 @@
-"""Helpers for the fault tests: reading a database after its server died, spotting a write in flight, checks."""
+"""Fault test helpers: reading a database after its server died, spotting a write in flight, checks, servers."""
 
 import contextlib
 import sqlite3
@@ -9,6 +9,8 @@ import requests
 
 from abate import db
 from abate.config import load_config
+from mail.conftest import smtp_server  # noqa: F401 - the mail tests' SMTP server, a fixture here too
+from webhooks.conftest import receiver  # noqa: F401 - the webhook tests' receiver, a fixture here too
 
 
 @contextlib.contextmanager

@@ -1,15 +1,50 @@
-"""Two `abate serve --no-scheduler` processes on one PostgreSQL schema, driven at once with abate_client."""
+"""Two `abate serve --no-scheduler` processes and two schedulers on one PostgreSQL schema, driven at once."""
 
+import collections
+import concurrent.futures
 import datetime
 import threading
+import time
+from dataclasses import dataclass
 
 import pytest
 
 import abate_client
-from processes import abate_environment, admin_secret
+from client.conftest import new_mode, new_study, open_action
+from processes import abate_environment, admin_secret, mail_settings, wait_for
+from webhooks.conftest import WEBHOOK_SETTINGS
 
 ROUNDS = 10
-IN_A_MONTH = (datetime.date.today() + datetime.timedelta(days=30)).isoformat()
+OWNERS = [f"owner{number:02d}@example.com" for number in range(40)]
+# Each served process takes at least this many writes, and more until every digest is out (or time is up).
+FEWEST_WRITES = 10
+MAILING_SECONDS = 60
+RUN_LINE = "reminder job run_reminders"
+YESTERDAY_UTC = datetime.datetime.now(datetime.UTC).date() - datetime.timedelta(days=1)
+
+
+@dataclass
+class Instances:
+    """Admin clients of two served processes on one database, the environment they run in and a study's mode."""
+
+    clients: list
+    env: dict
+    study: abate_client.Study
+    mode: abate_client.Mode
+
+
+@pytest.fixture
+def instances(tmp_path, postgres_schema_url, processes, smtp_server):
+    """Two served processes on one fresh PostgreSQL schema, mailing to smtp_server; SQLite suits one machine only."""
+    # Midnight has always passed, so a scheduler started on env runs the day's reminder job at once.
+    settings = {**mail_settings(smtp_server), **WEBHOOK_SETTINGS, "REMINDER_TIME": "00:00"}
+    env = abate_environment(postgres_schema_url, tmp_path, **settings)
+    secret = admin_secret(env)
+    clients = [abate_client.Client(processes.serve(env).base, token=secret, retries=0) for _ in range(2)]
+    study = new_study(clients[0], title="Shared study", timezone="UTC")
+    yield Instances(clients, env, study, new_mode(clients[0], study, 6, 4, 3, failure_mode="Seal leaks"))
+    for client in clients:
+        client.close()
 
 
 def _race(calls):
@@ -32,71 +67,90 @@ def _race(calls):
     return outcomes
 
 
-@pytest.fixture
-def two_instances(tmp_path, database_url, processes):
-    """Clients of two served processes on the same database (PostgreSQL only)."""
-    if not database_url.startswith("postgres"):
-        pytest.skip("several instances need PostgreSQL; SQLite suits one machine (README, Production shape)")
-    env = abate_environment(database_url, tmp_path)
-    secret = admin_secret(env)
-    clients = [abate_client.Client(processes.serve(env).base, token=secret, retries=0) for _ in range(2)]
-    yield clients
-    for client in clients:
-        client.close()
-
-
-def test_if_match_patches_through_two_instances_lose_no_update(two_instances):
-    first, second = two_instances
-    scale = next(iter(first.scales.list()))
-    study = first.studies.create(
-        title="Shared study",
-        kind="process",
-        owner={"name": "R. Vik", "email": "r.vik@example.com"},
-        scale_id=scale.id,
-        timezone="UTC",
-    )
-    mode = first.modes.create(study.id, failure_mode="Seal leaks", severity=6, occurrence=4, detection=3)
+def test_if_match_patches_through_two_instances_lose_no_update(instances):
     landed, refused = 0, 0
     for round_number in range(ROUNDS):
         # Both read the same version, then both write with its ETag: at most one may land.
-        reads = [client.modes.get(mode.id) for client in two_instances]
+        reads = [client.modes.get(instances.mode.id) for client in instances.clients]
         outcomes = _race(
             [
                 lambda c=client, r=read, n=index, k=round_number: c.modes.update(r, effect=f"round {k} by {n}")
-                for index, (client, read) in enumerate(zip(two_instances, reads, strict=True))
+                for index, (client, read) in enumerate(zip(instances.clients, reads, strict=True))
             ]
         )
-        landed += sum(isinstance(outcome, abate_client.models.Mode) for outcome in outcomes)
+        landed += sum(isinstance(outcome, abate_client.Mode) for outcome in outcomes)
         refused += sum(isinstance(outcome, abate_client.PreconditionFailed) for outcome in outcomes)
     assert landed + refused == 2 * ROUNDS
     assert landed >= ROUNDS  # each round's read version is written by at least one of the two
-    assert second.modes.get(mode.id).version == 1 + landed
+    assert instances.clients[1].modes.get(instances.mode.id).version == 1 + landed
 
 
-def test_closes_of_one_action_through_two_instances_succeed_once(two_instances):
-    first, second = two_instances
-    scale = next(iter(first.scales.list()))
-    study = first.studies.create(
-        title="Shared closes",
-        kind="process",
-        owner={"name": "R. Vik", "email": "r.vik@example.com"},
-        scale_id=scale.id,
-        timezone="UTC",
-    )
-    mode = first.modes.create(study.id, failure_mode="Bolt loosens", severity=7, occurrence=6, detection=4)
-    action = first.actions.create(
-        mode.id,
-        title="Thread locker",
-        kind="prevention",
-        owner={"name": "R. Vik", "email": "r.vik@example.com"},
-        due_date=IN_A_MONTH,
-        target=None,
-    )
-    read = first.actions.get(action.id)
-    calls = [lambda c=client: c.actions.close(read, "torque audit", {"occurrence": 2}) for client in two_instances * 4]
-    outcomes = _race(calls)
-    closed = [outcome for outcome in outcomes if isinstance(outcome, abate_client.models.Action)]
+def test_closes_of_one_action_through_two_instances_succeed_once(instances):
+    read = open_action(instances.clients[0], instances.mode, title="Thread locker")
+    calls = [lambda c=client: c.actions.close(read, "torque audit", {"occurrence": 2}) for client in instances.clients]
+    outcomes = _race(calls * 4)
+    closed = [outcome for outcome in outcomes if isinstance(outcome, abate_client.Action)]
     # The losers see either the changed ETag (412) or the closed state (409), depending on where they lost.
     losers = [o for o in outcomes if isinstance(o, (abate_client.PreconditionFailed, abate_client.Conflict))]
-    assert len(closed) == 1 and len(losers) == len(calls) - 1
-    assert second.actions.get(action.id).status == "closed"
+    assert len(closed) == 1 and len(losers) == len(outcomes) - 1
+    assert instances.clients[1].actions.get(read.id).status == "closed"
+
+
+def _rerate_until_mailed(client, mode, smtp_server):
+    """Re-rate mode through client until every digest is out; once the first is, run the reminder job here too."""
+    deadline = time.monotonic() + MAILING_SECONDS
+    writes, ran = 0, False
+    while writes < FEWEST_WRITES or (len(smtp_server.received) < len(OWNERS) and time.monotonic() < deadline):
+        if smtp_server.received and not ran:
+            # A scheduler's run is under way (or done): this one must find it busy or find nothing left to do.
+            client.reminders.run()
+            ran = True
+        mode = client.modes.update(mode, reason=f"Trial {writes}", occurrence=2 + writes % 2)
+        writes += 1
+    return writes
+
+
+def test_reminders_and_webhooks_go_out_once_per_key_while_both_instances_take_writes(
+    instances, processes, smtp_server, receiver
+):
+    first, second = instances.clients
+    subscription = first.webhooks.create(receiver.url, ["action.overdue", "mode.rerated"])
+    receiver.secret = subscription.secret
+    overdue_ids = []
+    for number, owner in enumerate(OWNERS):
+        client = instances.clients[number % 2]
+        action = open_action(client, instances.mode, owner={"name": "Owner", "email": owner}, due_date=YESTERDAY_UTC)
+        overdue_ids.append(action.id)
+    modes = [new_mode(client, instances.study, 5, 5, 5, failure_mode="Rerated") for client in instances.clients]
+
+    # Two schedulers, each with a webhook worker, beside the two served processes' workers; and a reminder run
+    # through each served process while it takes writes.
+    schedulers = [processes.start(instances.env, "scheduler") for _ in range(2)]
+
+    with concurrent.futures.ThreadPoolExecutor(2) as pool:
+        writers = [
+            pool.submit(_rerate_until_mailed, client, mode, smtp_server)
+            for client, mode in zip(instances.clients, modes, strict=True)
+        ]
+        rerates = sum(writer.result() for writer in writers)
+    expected = len(OWNERS) + rerates
+    assert wait_for(lambda: len(receiver.requests) >= expected, seconds=60), (len(receiver.requests), expected)
+    assert wait_for(lambda: all(RUN_LINE in scheduler.output for scheduler in schedulers), seconds=30)
+    # Give a second sender the time to (wrongly) send anything again.
+    time.sleep(2)
+    outputs = [scheduler.stop() for scheduler in schedulers]
+
+    assert sorted(address for item in smtp_server.received for address in item.rcpt_tos) == OWNERS, outputs
+    assert {(row.status, row.attempts) for row in second.reminders.list()} == {("sent", 1)}
+    # Each scheduler ran the day's job; the advisory lock or the outbox keys left one digest per owner.
+    assert all(output.count(RUN_LINE) == 1 for output in outputs), outputs
+
+    webhook_ids = [request.headers["webhook-id"] for request in receiver.requests]
+    assert len(webhook_ids) == len(set(webhook_ids)) == expected
+    assert collections.Counter(receiver.types()) == {"action.overdue": len(OWNERS), "mode.rerated": rerates}
+    overdue = [request.payload["data"] for request in receiver.requests if request.payload["type"] == "action.overdue"]
+    assert sorted(data["action_id"] for data in overdue) == sorted(overdue_ids)
+    assert all(request.verification_error is None for request in receiver.requests)
+    deliveries = list(second.webhooks.deliveries(subscription.id))
+    assert len(deliveries) == expected
+    assert {(delivery.status, delivery.attempt_count) for delivery in deliveries} == {("delivered", 1)}

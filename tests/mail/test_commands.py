@@ -1,43 +1,20 @@
 """`abate remind` and `abate scheduler` as real subprocesses; two schedulers on PostgreSQL send each mail once."""
 
 import datetime
-import os
-import subprocess
-import sys
 import time
 import zoneinfo
-from pathlib import Path
-
-import requests
 
 from abate import db
+from abate.domain.tokens import create_token
 from abate.models import Reminder
 from conftest import authorised_client, build_app, close_pool, make_mode, make_study
+from processes import abate_environment, mail_settings, run_abate, wait_for
 
-from .conftest import free_port
-
-ROOT = Path(__file__).resolve().parents[2]
-ABATE = str(Path(sys.executable).with_name("abate"))
 KAI = "kai.berg@example.com"
 
 
-def _env(database_url, smtp_server, **settings):
-    env = {
-        **os.environ,
-        "ABATE_DATABASE_URL": database_url,
-        "ABATE_SMTP_HOST": "127.0.0.1",
-        "ABATE_SMTP_PORT": str(smtp_server.port),
-        "ABATE_SMTP_STARTTLS": "0",
-        "ABATE_REMINDER_TIMEZONE": "UTC",
-        # Output of a process stopped by a signal is read back; nothing may wait in a buffer.
-        "PYTHONUNBUFFERED": "1",
-    }
-    env.update({f"ABATE_{name}": value for name, value in settings.items()})
-    return env
-
-
-def _abate(env, *args, check=True):
-    return subprocess.run([ABATE, *args], env=env, cwd=ROOT, capture_output=True, text=True, timeout=60, check=check)
+def _env(database_url, tmp_path, smtp_server, **settings):
+    return abate_environment(database_url, tmp_path, **mail_settings(smtp_server), **settings)
 
 
 def _today_utc():
@@ -62,87 +39,57 @@ def _overdue_actions(client, owners):
         assert client.post(f"/v1/modes/{mode['id']}/actions", json=body).status_code == 201
 
 
-def test_remind_now_with_dry_run_reports_and_without_it_sends(client, database_url, smtp_server):
+def test_remind_now_with_dry_run_reports_and_without_it_sends(client, database_url, tmp_path, smtp_server):
     _overdue_actions(client, [KAI])
-    env = _env(database_url, smtp_server)
+    env = _env(database_url, tmp_path, smtp_server)
     key = f"digest:{KAI}:{_today_utc().isoformat()}"
 
-    dry = _abate(env, "remind", "--now", "--dry-run").stdout
+    dry = run_abate(env, "remind", "--now", "--dry-run").stdout
     assert f"would be recorded {key}" in dry and f"would be sent {key}" in dry
     assert smtp_server.received == []
 
-    real = _abate(env, "remind", "--now").stdout
+    real = run_abate(env, "remind", "--now").stdout
     assert f"recorded {key}" in real and f"sent {key}" in real and "1 recorded, 1 sent" in real
     assert [item.rcpt_tos for item in smtp_server.received] == [[KAI]]
-    again = _abate(env, "remind", "--now").stdout
+    again = run_abate(env, "remind", "--now").stdout
     assert "0 recorded, 0 sent" in again and len(smtp_server.received) == 1
 
 
-def test_remind_without_now_is_a_usage_error(client, database_url, smtp_server):
-    result = _abate(_env(database_url, smtp_server), "remind", check=False)
+def test_remind_without_now_is_a_usage_error(client, database_url, tmp_path, smtp_server):
+    result = run_abate(_env(database_url, tmp_path, smtp_server), "remind", check=False)
     assert result.returncode == 2 and "pass --now" in result.stderr
 
 
-def _serve_until_ready(env, *options):
-    port = free_port()
-    server = subprocess.Popen(
-        [ABATE, "serve", "--port", str(port), *options], env=env, cwd=ROOT, stdout=subprocess.PIPE, text=True
-    )
-    deadline = time.monotonic() + 20
-    while True:
-        try:
-            requests.get(f"http://127.0.0.1:{port}/livez", timeout=2)
-            return server
-        except requests.ConnectionError:
-            assert time.monotonic() < deadline, "abate serve did not start"
-            time.sleep(0.2)
-
-
-def test_serve_runs_the_scheduler_in_process_unless_told_not_to(client, database_url, smtp_server):
+def test_serve_runs_the_scheduler_in_process_unless_told_not_to(client, database_url, tmp_path, processes, smtp_server):
     _overdue_actions(client, [KAI])
-    env = _env(database_url, smtp_server, REMINDER_TIME="00:00")
+    env = _env(database_url, tmp_path, smtp_server, REMINDER_TIME="00:00")
 
-    quiet = _serve_until_ready(env, "--no-scheduler")
+    quiet = processes.serve(env)
     time.sleep(2)
-    quiet.terminate()
-    assert "reminder digests" not in quiet.communicate(timeout=20)[0]
+    assert "reminder digests" not in quiet.stop()
     assert smtp_server.received == []
 
-    embedded = _serve_until_ready(env)
-    try:
-        deadline = time.monotonic() + 20
-        while not smtp_server.received and time.monotonic() < deadline:
-            time.sleep(0.1)
-    finally:
-        embedded.terminate()
-    assert "reminder digests daily at 00:00 UTC" in embedded.communicate(timeout=20)[0]
+    embedded = processes.serve(env, scheduler=True)
+    wait_for(lambda: smtp_server.received, seconds=20)
+    assert "reminder digests daily at 00:00 UTC" in embedded.stop()
     assert [item.rcpt_tos for item in smtp_server.received] == [[KAI]]
 
 
-def test_two_scheduler_processes_on_postgresql_send_every_digest_once(postgres_schema_url, tmp_path, smtp_server):
+def test_two_scheduler_processes_on_postgresql_send_every_digest_once(
+    postgres_schema_url, tmp_path, processes, smtp_server
+):
     app = build_app(postgres_schema_url, tmp_path)
-    from abate.domain.tokens import create_token
-
     with db.database.connection_context():
         secret = create_token("test admin", "admin")[1]
     owners = [f"owner{number:03d}@example.com" for number in range(120)]
     _overdue_actions(authorised_client(app, secret), owners)
     # Midnight has always passed, so each scheduler runs the day's job as soon as it starts.
-    env = _env(postgres_schema_url, smtp_server, REMINDER_TIME="00:00")
-    schedulers = [
-        subprocess.Popen([ABATE, "scheduler"], env=env, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
-        for _ in range(2)
-    ]
-    try:
-        deadline = time.monotonic() + 60
-        while len(smtp_server.received) < len(owners) and time.monotonic() < deadline:
-            time.sleep(0.1)
-        # Give a second sender the time to (wrongly) send anything again.
-        time.sleep(2)
-    finally:
-        for process in schedulers:
-            process.terminate()
-        outputs = [process.communicate(timeout=20)[0].decode() for process in schedulers]
+    env = _env(postgres_schema_url, tmp_path, smtp_server, REMINDER_TIME="00:00")
+    schedulers = [processes.start(env, "scheduler") for _ in range(2)]
+    wait_for(lambda: len(smtp_server.received) >= len(owners), seconds=60)
+    # Give a second sender the time to (wrongly) send anything again.
+    time.sleep(2)
+    outputs = [process.stop() for process in schedulers]
     recipients = sorted(address for item in smtp_server.received for address in item.rcpt_tos)
     assert recipients == owners, outputs
     assert all("reminder digests daily at 00:00 UTC" in output for output in outputs)

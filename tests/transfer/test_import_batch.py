@@ -1,11 +1,13 @@
 """The import's bulk writer against the reference: every record created one by one through the domain functions."""
 
+import datetime
 import io
 import json
 
 from sheets import HEADER, ROWS, csv_bytes
 
 from abate.domain import actions, import_writer, importer, modes, studies, webhooks
+from abate.domain.clock import utcnow
 from abate.domain.scales import find_scale_set_by_name
 from abate.models import CorrectiveAction, FailureMode, RiskEvent, Study, WebhookDelivery
 from conftest import BUILTIN_1_10
@@ -85,6 +87,9 @@ EXPORT = {
         {"item": "Housing", "failure_mode": "Paint flakes", "severity": 2, "occurrence": 5, "detection": 3},
         {"item": "Motor", "failure_mode": "Winding overheats", "severity": 9, "occurrence": 3, "detection": 6,
          "status": "retired"},
+        # Text with what a bulk format must escape: tab, line breaks and a backslash.
+        {"item": "Cable\tduct", "failure_mode": "Jacket splits\r\nat the C:\\ bend", "severity": 5,
+         "occurrence": 5, "detection": 5, "effect": "Wire \\N exposed\n"},
     ]
 }  # fmt: skip
 
@@ -159,8 +164,9 @@ def test_the_bulk_writer_writes_what_creating_each_record_one_by_one_writes(conn
     for reports, study_id in ((bulk_reports, bulk), (reference_reports, reference)):
         ids = [mode.id for mode in FailureMode.select().where(FailureMode.study == study_id).order_by(FailureMode.id)]
         assert [mode_id for report in reports for mode_id in report["mode_ids"]] == ids[1:]
-    # The comparison covers what the files hold: 1 + 3 + 5 modes, 1 + 5 actions, each with its events.
-    assert (len(written["modes"]), len(written["actions"])) == (9, 6)
+    # The comparison covers what the files hold: 1 + 3 + 6 modes, 1 + 5 actions, each with its events.
+    assert (len(written["modes"]), len(written["actions"])) == (10, 6)
+    assert "Jacket splits\r\nat the C:\\ bend" in [mode["failure_mode"] for mode in written["modes"]]
     assert {event["kind"] for event in written["events"]} == {
         "created",
         "action_created",
@@ -169,3 +175,18 @@ def test_the_bulk_writer_writes_what_creating_each_record_one_by_one_writes(conn
         "retired",
     }
     assert written["deliveries"]
+
+
+def test_the_bulk_writer_keeps_the_import_instant_to_the_microsecond(connection, monkeypatch):
+    study_id = _study("Pump, instants")
+    instant = (utcnow() + datetime.timedelta(seconds=1)).replace(microsecond=654321)
+    monkeypatch.setattr(import_writer, "utcnow", lambda: instant)
+    _import(study_id, json.dumps(EXPORT).encode(), "pump.json")
+
+    imported = FailureMode.select().where((FailureMode.study == study_id) & (FailureMode.created_at == instant))
+    assert imported.count() == len(EXPORT["modes"])
+    assert {(mode.updated_at, mode.retired_at or instant) for mode in imported} == {(instant, instant)}
+    actions_of = CorrectiveAction.select().where(CorrectiveAction.study == study_id)
+    assert {(action.created_at, action.updated_at) for action in actions_of} == {(instant, instant)}
+    events = RiskEvent.select().where((RiskEvent.study == study_id) & (RiskEvent.source == import_writer.IMPORT_SOURCE))
+    assert {(event.occurred_at, event.recorded_at) for event in events} == {(instant, instant)}

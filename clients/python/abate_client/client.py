@@ -13,6 +13,8 @@ from abate_client.models import (
     Action,
     Delivery,
     Mode,
+    Observation,
+    OccurrenceEvidence,
     PortfolioHistory,
     Reminder,
     ReminderRun,
@@ -47,6 +49,7 @@ class Client:
         self.modes = Modes(self)
         self.events = Events(self)
         self.actions = Actions(self)
+        self.observations = Observations(self)
         self.history = History(self)
         self.reminders = Reminders(self)
         self.webhooks = Webhooks(self)
@@ -350,6 +353,41 @@ def _segment(text):
     """text as one percent-encoded path segment; "." and ".." too, which URL normalising would remove."""
     quoted = quote(text, safe="")
     return quoted.replace(".", "%2E") if quoted in (".", "..") else quoted
+
+
+class Observations(_Resources):
+    """Observed failures of modes from maintenance and quality systems, and the occurrence they imply."""
+
+    def record(self, mode_id, **observation):
+        """Record failures of a mode: failures, exposure, period_start, period_end, source_system, record_key
+        (exposure_unit, note optional); a resend of the same source record returns the stored one."""
+        path = f"/v1/modes/{int(mode_id)}/observations"
+        return self._one(Observation, "POST", path, json=_encoded(observation))
+
+    def record_by_ref(self, system, key, **observation):
+        """Record failures of the mode carrying the external reference system/key (fields as record takes)."""
+        path = f"/v1/modes/by-ref/{_segment(system)}/{_segment(key)}/observations"
+        return self._one(Observation, "POST", path, json=_encoded(observation))
+
+    def list(self, mode_id, *, page_size=None):
+        """A mode's observations, oldest period first, fetched lazily."""
+        return self._every(Observation, f"/v1/modes/{int(mode_id)}/observations", {}, page_size)
+
+    def evidence(self, mode_id):
+        """The observed rate, its upper bound, the implied occurrence and any suggestion for one mode."""
+        response = self._client.request("GET", f"/v1/modes/{int(mode_id)}/occurrence-evidence")
+        return OccurrenceEvidence.from_json(_json(response))
+
+    def study_evidence(self, study_id, *, status=None):
+        """The evidence of every observed active mode of a study, suggestions and drift first."""
+        params = _query({"status": status}, None)
+        response = self._client.request("GET", f"/v1/studies/{int(study_id)}/occurrence-evidence", params=params)
+        return [OccurrenceEvidence.from_json(item) for item in _json(response)["items"]]
+
+    def accept(self, mode_id, occurrence, reason=""):
+        """Re-rate the mode's occurrence to the suggested level; Conflict if the data now says otherwise."""
+        body = {"occurrence": occurrence, "reason": reason}
+        return self._one(Mode, "POST", f"/v1/modes/{int(mode_id)}/occurrence-suggestion/accept", json=body)
 
 
 class History(_Resources):

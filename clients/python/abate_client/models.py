@@ -63,6 +63,7 @@ class ScaleSet(_FromJson):
     created_at: datetime.datetime
     updated_at: datetime.datetime
     etag: str | None = None
+    occurrence_rate_basis: str | None = None
 
 
 @dataclasses.dataclass(frozen=True)
@@ -165,6 +166,7 @@ class RiskEvent(_FromJson):
     study_max_rpn: int
     study_needs_action_count: int
     study_revision: int
+    observation_ids: list[int] | None = None
 
 
 def _date(value):
@@ -370,3 +372,56 @@ class Delivery(_FromJson):
     created_at: datetime.datetime
     payload: dict[str, Any]
     attempts: list[DeliveryAttempt]
+
+
+@dataclasses.dataclass(frozen=True)
+class Observation(_FromJson):
+    """Failures of one mode counted by another system over an exposure (units or hours) and a period."""
+
+    converters: ClassVar[dict] = {
+        "period_start": _date,
+        "period_end": _date,
+        "recorded_at": _timestamp,
+    }
+
+    id: int
+    mode_id: int
+    study_id: int
+    failures: int
+    exposure: float
+    exposure_unit: str
+    period_start: datetime.date
+    period_end: datetime.date
+    source_system: str
+    record_key: str
+    note: str
+    recorded_by: str
+    recorded_at: datetime.datetime
+    etag: str | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class OccurrenceEvidence(_FromJson):
+    """What a mode's observations say about its occurrence: rates per the basis, the implied level, a suggestion."""
+
+    converters: ClassVar[dict] = {"drift_since": _timestamp}
+
+    mode_id: int
+    occurrence: int
+    status: str
+    window: dict[str, Any]
+    confidence: float
+    estimate: str
+    rate_basis: str | None
+    exposure_unit: str | None
+    observation_ids: list[int]
+    ignored_observation_ids: list[int]
+    failures: int | None
+    exposure: float | None
+    observed_rate: float | None
+    upper_bound_rate: float | None
+    implied_occurrence: int | None
+    band: dict[str, Any] | None
+    occurrence_suggestion: dict[str, Any] | None
+    drift: bool
+    drift_since: datetime.datetime | None

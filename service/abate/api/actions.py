@@ -159,6 +159,13 @@ class ActionEffectSchema(ma.Schema):
     planned_rpn_removed = ma.fields.Integer()
     met_target = ma.fields.Boolean()
     rating_raised = ma.fields.Boolean()
+    data_check = ma.fields.String(
+        allow_none=True,
+        metadata={
+            "description": "For an action meant to lower occurrence: consistent_with_data, not_confirmed_by_data "
+            "(observed failures imply a higher occurrence than rated) or no_data; null otherwise"
+        },
+    )
 
 
 class ActionEffectListSchema(ma.Schema):

@@ -53,7 +53,9 @@ def require_token():
     token = authenticate(secret) if secret else None
     if token is None:
         raise Unauthorized("send Authorization: Bearer <token>; the token is missing, unknown or revoked")
-    needed = required_role(request.blueprint, request.method, request.get_json(silent=True))
+    # Only a write's body can raise the role it needs; a read's is never parsed here.
+    body = None if request.method in SAFE_METHODS else request.get_json(silent=True)
+    needed = required_role(request.blueprint, request.method, body)
     if RANK[token.role] < RANK[needed]:
         raise Forbidden(f"this token has the {token.role} role; this request needs the {needed} role")
     g.token = token

@@ -7,6 +7,7 @@ import marshmallow as ma
 from flask import request
 from werkzeug.routing import IntegerConverter
 
+from abate.api.dumping import PlannedDump
 from abate.domain.pagination import paginate
 from abate.domain.versions import IF_MATCH_MISSING
 
@@ -108,11 +109,11 @@ class ReasonSchema(ma.Schema):
 
 
 def list_schema(item_schema):
-    """The envelope {"items": [...], "next": URL or null} around item_schema."""
+    """The envelope {"items": [...], "next": URL or null} around item_schema (dumped by plan)."""
     name = item_schema.__name__.removesuffix("Schema") + "ListSchema"
     return type(
         name,
-        (ma.Schema,),
+        (PlannedDump, ma.Schema),
         {
             "items": ma.fields.List(ma.fields.Nested(item_schema), required=True),
             "next": ma.fields.String(

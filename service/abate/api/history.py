@@ -1,12 +1,12 @@
 """/v1/studies/{id}/history and /v1/history: how risk fell over time, and where it is heading."""
 
 import marshmallow as ma
-from flask import Response, jsonify
+from flask import Response, current_app
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
 from abate.api.common import DATE_RANGE, UTCDateTime
-from abate.domain import charts, history
+from abate.domain import charts, history, observed_rates
 from abate.domain.caching import BoundedCache
 from abate.domain.clock import local_today, utcnow
 from abate.domain.criticality_report import class_series
@@ -74,6 +74,20 @@ class HistoryPointSchema(ma.Schema):
     change = ma.fields.Nested(ChangeSchema)
 
 
+class ObservedSeriesSchema(ma.Schema):
+    """A mode's occurrence rating beside what its observations showed, at each point."""
+
+    rate_basis = ma.fields.String()
+    occurrence = ma.fields.List(ma.fields.Integer(allow_none=True), metadata={"description": "The rating"})
+    observed_rate = ma.fields.List(
+        ma.fields.Float(allow_none=True),
+        metadata={"description": "failures / exposure over the study's window ending then; null without data"},
+    )
+    implied_occurrence = ma.fields.List(
+        ma.fields.Integer(allow_none=True), metadata={"description": "The level the study's estimate implied then"}
+    )
+
+
 class ModeSeriesSchema(ma.Schema):
     """One mode's RPN at each point (null where it was not active)."""
 
@@ -81,6 +95,11 @@ class ModeSeriesSchema(ma.Schema):
     item = ma.fields.String()
     failure_mode = ma.fields.String()
     rpn = ma.fields.List(ma.fields.Integer(allow_none=True))
+    observed = ma.fields.Nested(
+        ObservedSeriesSchema,
+        allow_none=True,
+        metadata={"description": "For a mode with observations: occurrence beside the observed rate; else null"},
+    )
 
 
 class ProjectionPointSchema(ma.Schema):
@@ -163,12 +182,15 @@ def study_history(study, args, now):
     if wanted != ():
         by_mode = history.mode_series(study, wanted, lookups)
         names = {mode.id: mode for mode in FailureMode.select().where(FailureMode.id.in_(list(by_mode)))}
+        observed = observed_rates.observed_series(study, list(by_mode), lookups)
+        occurrence = history.mode_series(study, list(observed), lookups, "occurrence") if observed else {}
         series = [
             {
                 "mode_id": mode_id,
                 "item": names[mode_id].item,
                 "failure_mode": names[mode_id].failure_mode,
                 "rpn": values,
+                "observed": {**observed[mode_id], "occurrence": occurrence[mode_id]} if mode_id in observed else None,
             }
             for mode_id, values in by_mode.items()
         ]
@@ -184,11 +206,13 @@ def study_history(study, args, now):
     }
 
 
-# Dumped documents without mode series. A study's revision moves with every event and its version with
+# Serialized documents without mode series. A study's revision moves with every event and its version with
 # every change of its own fields, so they, the arguments and the local day decide the whole document but
-# for the two instants stamped now.
-_dumped_documents = BoundedCache()
+# for the two instants stamped now; the document is kept as its JSON cut where those instants go.
+_serialized_documents = BoundedCache()
 _NOW_FIELD = UTCDateTime()
+# Stands in for the instants stamped now while the document is serialized; no document holds this text.
+_NOW_MARK = "\x00now\x00"
 
 
 def _document_key(study, args, now):
@@ -196,34 +220,47 @@ def _document_key(study, args, now):
     return (history.revision_key(study), study.version, window, local_today(study.timezone, now))
 
 
-def _stamped(dumped, now):
-    """A copy of a dumped document whose in-progress point and projection start are stamped now."""
-    stamp = _NOW_FIELD.serialize("at", {"at": now})
+def _now_marked(dumped):
+    """A copy of a dumped document whose in-progress point and projection start hold _NOW_MARK."""
     points = list(dumped["points"])
     if points and points[-1]["in_progress"]:
-        points[-1] = {**points[-1], "at": stamp}
+        points[-1] = {**points[-1], "at": _NOW_MARK}
     future = dumped["projection"]["points"]
-    projected = {**dumped["projection"], "points": [{**future[0], "at": stamp}, *future[1:]]}
+    projected = {**dumped["projection"], "points": [{**future[0], "at": _NOW_MARK}, *future[1:]]}
     return {**dumped, "points": points, "projection": projected}
 
 
+def _serialized_pieces(study, args, now):
+    """The document's JSON as jsonify writes it, in byte pieces between which now is stamped."""
+    dumped = StudyHistorySchema().dump(study_history(study, args, now))
+    marked = current_app.json.response(_now_marked(dumped)).get_data()
+    return marked.split(current_app.json.dumps(_NOW_MARK).encode())
+
+
+def history_json(study, args, now):
+    """The study's history without mode series as JSON bytes: serialized once per revision and day, stamped now."""
+    pieces = _serialized_documents.get_or_compute(
+        _document_key(study, args, now), lambda: _serialized_pieces(study, args, now)
+    )
+    stamp = current_app.json.dumps(_NOW_FIELD.serialize("at", {"at": now})).encode()
+    return stamp.join(pieces)
+
+
 def history_response(study_id, args):
-    """The history document; without mode series it is dumped once per revision and day, then re-stamped."""
+    """The history document; without mode series it is served from its serialized form (history_json)."""
     study = get_study(study_id)
     now = utcnow()
     if args.get("modes"):
         return study_history(study, args, now)
-    dumped = _dumped_documents.get_or_compute(
-        _document_key(study, args, now), lambda: StudyHistorySchema().dump(study_history(study, args, now))
-    )
-    return jsonify(_stamped(dumped, now))
+    return current_app.response_class(history_json(study, args, now), mimetype=current_app.json.mimetype)
 
 
 @blp.route("/studies/<int:study_id>/history")
 class StudyHistory(MethodView):
     """A study's risk burn-down."""
 
-    @blp.arguments(HistoryArgsSchema, location="query", unknown=ma.RAISE)
+    # One schema instance for every request: building one per request costs more than the cached answer.
+    @blp.arguments(HistoryArgsSchema(), location="query", unknown=ma.RAISE)
     @blp.response(200, StudyHistorySchema)
     def get(self, args, study_id):
         """Totals at each interval end in the study's time zone, change by cause, projection."""

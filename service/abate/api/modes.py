@@ -20,6 +20,7 @@ from abate.api.common import (
     page_of,
 )
 from abate.api.criticality import ModeFiguresSchema, ModeInputsSchema
+from abate.api.dumping import PlannedDump
 from abate.api.studies import RatingsSchema
 from abate.domain import modes
 from abate.domain.scoring import PRIORITY_BANDS
@@ -32,7 +33,7 @@ blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes"
 _TEXT = ma.validate.Length(max=10000)
 
 
-class ModeSchema(ModeInputsSchema):
+class ModeSchema(PlannedDump, ModeInputsSchema):
     """One failure mode (an analysis row) with its scores (and its Task 102 inputs, for criticality)."""
 
     id = ma.fields.Integer(dump_only=True)
@@ -108,7 +109,8 @@ class ModeQueryArgsSchema(PageArgsSchema):
     )
 
 
-def _respond(mode, status=200):
+def mode_response(mode, status=200):
+    """The mode's view, status and ETag (and Location when created)."""
     study = get_study(mode.study_id)
     view = modes.mode_views([mode], study)[0]
     headers = {"ETag": etag(mode_tag(mode, study))}
@@ -141,10 +143,10 @@ class StudyModes(MethodView):
         """List a study's modes, highest RPN first unless sort says otherwise; as_of lists them as they were."""
         if "as_of" in args:
             return _modes_as_of(study_id, args)
-        query = modes.modes_query(
-            study_id, args.get("status"), args.get("needs_action"), args.get("priority"), args.get("min_rpn")
-        )
         study = get_study(study_id)
+        query = modes.modes_query(
+            study, args.get("status"), args.get("needs_action"), args.get("priority"), args.get("min_rpn")
+        )
         order = modes.MODE_SORTS[args.get("sort", "-rpn")]
         return page_of(query, order, args, lambda rows: modes.mode_views(rows, study))
 
@@ -153,7 +155,7 @@ class StudyModes(MethodView):
     @blp.alt_response(409, description="The study is archived")
     def post(self, data, study_id):
         """Add a failure mode; its ratings must lie on the study's scale."""
-        return _respond(modes.create_mode(study_id, data, actor=current_actor(), source=REQUEST_SOURCE), 201)
+        return mode_response(modes.create_mode(study_id, data, actor=current_actor(), source=REQUEST_SOURCE), 201)
 
 
 @blp.route("/modes/<int:mode_id>")
@@ -163,7 +165,7 @@ class ModeById(MethodView):
     @blp.response(200, ModeSchema)
     def get(self, mode_id):
         """Read a mode."""
-        return _respond(modes.get_mode(mode_id))
+        return mode_response(modes.get_mode(mode_id))
 
     @blp.arguments(ModePatchSchema)
     @blp.response(200, ModeSchema)
@@ -175,7 +177,7 @@ class ModeById(MethodView):
         mode = modes.update_mode(
             mode_id, changes, actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags(required=True)
         )
-        return _respond(mode)
+        return mode_response(mode)
 
 
 @blp.route("/modes/<int:mode_id>/retire")
@@ -192,4 +194,4 @@ class ModeRetirement(MethodView):
         mode = modes.retire_mode(
             mode_id, data["reason"], actor=current_actor(), source=REQUEST_SOURCE, expected_tags=if_match_tags()
         )
-        return _respond(mode)
+        return mode_response(mode)

@@ -25,6 +25,9 @@ class ReminderSchema(ma.Schema):
     escalated = ma.fields.Integer(
         metadata={"description": "How many actions of the recipient's studies overdue beyond ABATE_ESCALATION_DAYS"}
     )
+    occurrence_drift = ma.fields.Integer(
+        metadata={"description": "How many of the recipient's closed actions observed data no longer bears out"}
+    )
     status = ma.fields.String(metadata={"description": "pending, sent or failed (gave up after the last attempt)"})
     attempts = ma.fields.Integer()
     last_error = ma.fields.String(metadata={"description": "Why the latest failed attempt failed"})

@@ -6,6 +6,7 @@ from flask_smorest import Blueprint
 
 from abate.api.common import IF_MATCH_PARAMETER, UTCDateTime, etag, if_match_tags
 from abate.domain import scales
+from abate.domain.rate_bands import RATE_BASES
 from abate.domain.versions import scale_set_tag
 
 blp = Blueprint("scales", __name__, url_prefix="/v1/scales", description="Rating scale sets")
@@ -17,6 +18,15 @@ class LevelSchema(ma.Schema):
     value = ma.fields.Integer(required=True, strict=True, validate=ma.validate.Range(min=1, max=10))
     label = ma.fields.String(required=True, validate=ma.validate.Length(min=1, max=200))
     criteria = ma.fields.String(load_default="", validate=ma.validate.Length(max=4000))
+    rate_from = ma.fields.Float(
+        allow_none=True,
+        allow_nan=False,
+        validate=ma.validate.Range(min=0, max=1e12),
+        metadata={
+            "description": "Occurrence levels only: the failure rate (in the set's occurrence_rate_basis) at which "
+            "this level starts; a rate exactly on it belongs to this level. The lowest level starts at 0."
+        },
+    )
 
 
 class DimensionSchema(ma.Schema):
@@ -49,6 +59,15 @@ class ScaleSetSchema(ma.Schema):
         validate=ma.validate.Range(min=1, max=10),
         metadata={
             "description": "Severity at or above which a mode needs action, for new studies (default: the top fifth)"
+        },
+    )
+    occurrence_rate_basis = ma.fields.String(
+        allow_none=True,
+        validate=ma.validate.OneOf(tuple(RATE_BASES)),
+        metadata={
+            "description": "What the occurrence levels' rate_from counts: "
+            + ", ".join(RATE_BASES)
+            + "; null when the levels carry no rate bands"
         },
     )
     builtin = ma.fields.Boolean(dump_only=True)

@@ -193,6 +193,11 @@ class RiskEventSchema(ma.Schema):
     study_revision = ma.fields.Integer()
     study_open_actions = ma.fields.Integer()
     rating_raised = ma.fields.Boolean(metadata={"description": "A closure whose verified result raised a rating"})
+    observation_ids = ma.fields.List(
+        ma.fields.Integer(),
+        allow_none=True,
+        metadata={"description": "The observations a re-rating from observed data rests on (null otherwise)"},
+    )
     change_by_cause = ma.fields.Dict(
         keys=ma.fields.String(),
         values=ma.fields.Integer(),

@@ -1,1 +1,2 @@
-"""Plain-Python domain layer: scoring, scales, studies, modes and risk events; no Flask here."""
+"""Plain-Python domain layer: scoring, studies, modes, actions, history, reminders, webhooks, import and export,
+criticality and observed failures; no Flask here."""

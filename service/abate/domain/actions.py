@@ -4,7 +4,7 @@ import peewee as pw
 
 from abate.db import database
 from abate.domain import events as risk_events
-from abate.domain import fmeca, reliability
+from abate.domain import fmeca, observed_rates, reliability
 from abate.domain.clock import local_today, utcnow
 from abate.domain.modes import apply_ratings, locked_active_mode, ratings_of
 from abate.domain.references import reference_view, save_referenced, set_reference
@@ -392,9 +392,22 @@ def action_view(action):
     return action_views([action])[0]
 
 
+def _data_check(study, action, evidence_of_mode):
+    """The observed-data check of a closed action's occurrence effect (null where it claimed none)."""
+    if not observed_rates.claims_occurrence_effect(action):
+        return None
+    if action.mode_id not in evidence_of_mode:
+        evidence_of_mode[action.mode_id] = observed_rates.evaluate(study, action.mode)
+    return observed_rates.data_check(evidence_of_mode[action.mode_id])
+
+
 def action_effects(study_id):
-    """Closed actions of a study ranked by risk removed, with planned (target) against achieved."""
-    get_study(study_id)
+    """Closed actions of a study ranked by risk removed, with planned (target) against achieved.
+
+    An action meant to lower occurrence also shows whether the mode's observed failures bear it out.
+    """
+    study = get_study(study_id)
+    evidence_of_mode = {}
     closures = (
         RiskEvent.select(RiskEvent, CorrectiveAction)
         .join(CorrectiveAction)
@@ -427,6 +440,7 @@ def action_effects(study_id):
                 "planned_rpn_removed": before.rpn - planned.rpn,
                 "met_target": event.after_rpn <= planned.rpn,
                 "rating_raised": event.rating_raised,
+                "data_check": _data_check(study, action, evidence_of_mode),
             }
         )
     return sorted(effects, key=lambda effect: (-effect["rpn_removed"], effect["action_id"]))

@@ -144,3 +144,13 @@ BUILTIN_SCALE_SETS = [
         ],
     },
 ]
+
+# The Abate project's own rate bands for the built-in ten-step occurrence scale, in failures per
+# thousand units: the rate at which each level starts (level 1 from zero). Each band holds the typical
+# rate its criteria above name; a company should set bands from its own products and data.
+BUILTIN_OCCURRENCE_BANDS = {
+    "General 1-10": {
+        "rate_basis": "per_thousand_units",
+        "starts": {1: 0, 2: 0.0005, 3: 0.002, 4: 0.015, 5: 0.08, 6: 0.5, 7: 2, 8: 6, 9: 20, 10: 80},
+    },
+}

@@ -6,7 +6,7 @@ import json
 import peewee as pw
 
 from abate.db import lock_for_update
-from abate.domain import fmeca, webhooks
+from abate.domain import fmeca, observed_rates, webhooks
 from abate.domain.clock import utcnow
 from abate.domain.scoring import RiskPolicy, needs_action_reasons
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
@@ -94,12 +94,14 @@ def record_event(
     occurred_at=None,
     rating_raised=False,
     criticality_before=UNCHANGED,
+    observation_ids=None,
 ):
     """Append an event; study must be locked and the mode/action already saved in their new state.
 
     before/after are Ratings (or None where the mode enters or leaves the study). The
     study's running total moves by the RPN difference and the event keeps the totals after it.
-    criticality_before is the mode's fmeca.snapshot before the change, where the change touched it.
+    criticality_before is the mode's fmeca.snapshot before the change, where the change touched it;
+    observation_ids names the observed data a re-rating rests on.
     """
     delta = (after.rpn if after else 0) - (before.rpn if before else 0)
     previous = latest_event(study)
@@ -133,12 +135,15 @@ def record_event(
         .count(),
         action_due_date=action.due_date if action is not None else None,
         rating_raised=rating_raised,
+        observation_ids=json.dumps(observation_ids) if observation_ids is not None else None,
         **sums,
     )
     # Queued in the change's own transaction: a change that rolls back sends no webhook.
     webhooks.enqueue_risk_event(
         event_view(event), event_view(previous) if previous else None, action.status if action is not None else None
     )
+    if mode is not None and kind in webhooks.RERATING_KINDS:
+        observed_rates.refresh_drift(study, mode, occurred_at)
     return event
 
 
@@ -201,6 +206,7 @@ def event_view(event):
         "study_revision": event.study_revision,
         "study_open_actions": event.study_open_actions,
         "rating_raised": event.rating_raised,
+        "observation_ids": json.loads(event.observation_ids) if event.observation_ids else None,
         "change_by_cause": {cause.removeprefix("change_"): getattr(event, cause) for cause in CAUSES},
     }
 

@@ -151,13 +151,14 @@ class ActionSweep:
         return sum(1 for due in self.due_of_unfinished.values() if due < local_day)
 
 
-def mode_series(study, mode_ids, lookups):
-    """{mode_id: [RPN just before each lookup instant, None where the mode was not active]}.
+def mode_series(study, mode_ids, lookups, figure="rpn"):
+    """{mode_id: [the figure (rpn, or a rating's name) just before each lookup instant, None where inactive]}.
 
     mode_ids None means every mode of the study.
     """
+    after = getattr(RiskEvent, f"after_{figure}")
     query = (
-        RiskEvent.select(RiskEvent.mode, RiskEvent.kind, RiskEvent.occurred_at, RiskEvent.after_rpn)
+        RiskEvent.select(RiskEvent.mode, RiskEvent.kind, RiskEvent.occurred_at, after)
         .where((RiskEvent.study == study) & RiskEvent.kind.in_(RATING_KINDS))
         .order_by(RiskEvent.study_revision)
     )
@@ -170,7 +171,7 @@ def mode_series(study, mode_ids, lookups):
     for instant in lookups:
         while position < len(events) and events[position].occurred_at < instant:
             event = events[position]
-            current[event.mode_id] = None if event.kind == "retired" else event.after_rpn
+            current[event.mode_id] = None if event.kind == "retired" else getattr(event, after.name)
             position += 1
         for mode_id, values in series.items():
             values.append(current.get(mode_id))

@@ -116,8 +116,11 @@ def locked_active_mode(mode_id):
     return study, mode
 
 
-def update_mode(mode_id, changes, *, actor, source, expected_tags=None):
-    """Change a mode's text and/or ratings; a rating change needs a reason and appends an event."""
+def update_mode(mode_id, changes, *, actor, source, expected_tags=None, observation_ids=None):
+    """Change a mode's text and/or ratings; a rating change needs a reason and appends an event.
+
+    observation_ids names the observed data a re-rating rests on, for its event.
+    """
     with database.atomic():
         study, mode = locked_active_mode(mode_id)
         check_precondition(mode_tag(mode, study), expected_tags)
@@ -153,6 +156,7 @@ def update_mode(mode_id, changes, *, actor, source, expected_tags=None):
                 reason=changes.get("reason", "").strip(),
                 occurred_at=occurred_at,
                 criticality_before=criticality_before,
+                observation_ids=observation_ids,
             )
     return mode
 
@@ -181,9 +185,8 @@ def modes_as_of_query(study, value):
     return FailureMode.select().where((FailureMode.study == study) & (FailureMode.created_at < lookup)), lookup
 
 
-def modes_query(study_id, status=None, needs_action=None, priority=None, min_rpn=None):
+def modes_query(study, status=None, needs_action=None, priority=None, min_rpn=None):
     """A study's modes matching the filters, for pagination by the caller."""
-    study = get_study(study_id)
     query = FailureMode.select().where(FailureMode.study == study)
     if status:
         query = query.where(FailureMode.status == status)

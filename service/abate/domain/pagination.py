@@ -8,6 +8,7 @@ from dataclasses import dataclass
 import peewee as pw
 
 from abate.errors import ValidationFailed, field_error
+from abate.prepared import fetch_all
 
 
 @dataclass
@@ -61,7 +62,7 @@ def paginate(query, order, limit, cursor=None):
     if cursor:
         query = query.where(_after(order, _decode(cursor, order)))
     query = query.order_by(*[field.desc() if descending else field.asc() for field, descending in order])
-    rows = list(query.limit(limit + 1))
+    rows = fetch_all(query.limit(limit + 1))
     if len(rows) <= limit:
         return Page(rows, None)
     rows = rows[:limit]

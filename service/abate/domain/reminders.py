@@ -15,10 +15,10 @@ from abate.domain.scoring import Ratings, priority_band
 from abate.domain.studies import policy_of
 from abate.domain.versions import check_precondition, save_new_version
 from abate.errors import Conflict, ValidationFailed, field_error
-from abate.models import CorrectiveAction, FailureMode, OwnerPreference, Reminder, Study
+from abate.models import CorrectiveAction, DriftNotice, FailureMode, OwnerPreference, Reminder, Study
 
 REMINDER_STATUSES = ("pending", "sent", "failed")
-SECTIONS = ("overdue", "due_soon", "escalated")
+SECTIONS = ("overdue", "due_soon", "escalated", "occurrence_drift")
 MAX_ATTEMPTS = 10
 FIRST_RETRY = datetime.timedelta(minutes=5)
 LONGEST_RETRY = datetime.timedelta(hours=6)
@@ -67,6 +67,7 @@ class Digest:
     overdue: list = field(default_factory=list)
     due_soon: list = field(default_factory=list)
     escalated: list = field(default_factory=list)
+    occurrence_drift: list = field(default_factory=list)
 
     @property
     def dedup_key(self):
@@ -86,6 +87,7 @@ class Digest:
             "escalated": sorted(
                 self.escalated, key=lambda line: (-line["days_overdue"], -line["rpn"], line["action_id"])
             ),
+            "occurrence_drift": sorted(self.occurrence_drift, key=lambda line: line["notice_id"]),
         }
 
     def summary(self):
@@ -166,6 +168,13 @@ def collect_digests(now, policy):
                 digest_of(study_owner, action.study.owner_name).escalated.append(line)
         elif line["days_left"] <= policy.due_soon_days and owner not in due_soon_opted_out:
             digest_of(owner, action.owner_name).due_soon.append(line)
+    for notice in DriftNotice.select().where(DriftNotice.digest_key.is_null()).order_by(DriftNotice.id):
+        line = {
+            **json.loads(notice.payload),
+            "notice_id": notice.id,
+            "link": f"{policy.base_url}/v1/modes/{notice.mode_id}/occurrence-evidence",
+        }
+        digest_of(notice.recipient, notice.name).occurrence_drift.append(line)
     return [digests[recipient] for recipient in sorted(digests)]
 
 
@@ -200,8 +209,19 @@ def record_digests(digests, day, now):
         ]
         for start in range(0, len(rows), _INSERT_BATCH):
             Reminder.insert_many(rows[start : start + _INSERT_BATCH]).on_conflict_ignore().execute()
+        _mark_drift_notices(new)
         _announce_overdue(digests, day, now)
     return new
+
+
+def _mark_drift_notices(digests):
+    """Note which digest carries each drift notice, so that it goes out once, in the owner's next digest."""
+    for digest in digests:
+        notice_ids = [line["notice_id"] for line in digest.occurrence_drift]
+        if notice_ids:
+            DriftNotice.update(digest_key=digest.dedup_key).where(
+                DriftNotice.id.in_(notice_ids) & DriftNotice.digest_key.is_null()
+            ).execute()
 
 
 def _announce_overdue(digests, day, now):
@@ -337,7 +357,8 @@ def digest_summary(dedup_key, recipient, payload):
         "dedup_key": dedup_key,
         "recipient": recipient,
         "day": datetime.date.fromisoformat(payload["day"]),
-        **{section: len(payload[section]) for section in SECTIONS},
+        # Digests recorded before a section existed simply lack it.
+        **{section: len(payload.get(section, [])) for section in SECTIONS},
     }
 
 

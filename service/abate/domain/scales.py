@@ -2,6 +2,7 @@
 
 from abate.db import database
 from abate.domain import scoring
+from abate.domain.rate_bands import RateBands, check_band_table
 from abate.domain.versions import check_precondition, save_new_version, scale_set_tag
 from abate.errors import NotFound, RatingOutOfScale, ScaleInUse, ValidationFailed, field_error
 from abate.models import RATING_DIMENSIONS, ScaleLevel, ScaleSet, Study
@@ -52,9 +53,44 @@ def _check_defaults(scale_set):
         raise ValidationFailed("the scale set's default policy lies outside its scales", errors=errors)
 
 
+def _check_rate_bands(data):
+    """Only occurrence levels carry rate_from, all of them exactly when the set names a rate basis."""
+    stray = [
+        field_error(f"{dimension}.levels", "only occurrence levels carry rate_from")
+        for dimension in ("severity", "detection")
+        if any(level.get("rate_from") is not None for level in data[dimension]["levels"])
+    ]
+    if stray:
+        raise ValidationFailed("rate bands belong to the occurrence scale", errors=stray)
+    starts = {level["value"]: level.get("rate_from") for level in data["occurrence"]["levels"]}
+    basis = data.get("occurrence_rate_basis")
+    if basis is None:
+        if any(start is not None for start in starts.values()):
+            raise ValidationFailed(
+                "occurrence levels carry rate_from but the scale set names no rate basis",
+                errors=[field_error("occurrence_rate_basis", "required when occurrence levels carry rate_from")],
+            )
+        return
+    check_band_table(basis, starts, max(starts), "occurrence")
+
+
+def rate_bands_of(scale_set):
+    """The scale set's occurrence rate bands, or None when it has none."""
+    if scale_set.occurrence_rate_basis is None:
+        return None
+    levels = scale_set.levels.where(ScaleLevel.dimension == "occurrence").order_by(ScaleLevel.value)
+    return RateBands(
+        scale_set.occurrence_rate_basis,
+        tuple(level.value for level in levels),
+        tuple(level.rate_from for level in levels),
+    )
+
+
 def _apply(scale_set, data):
     """Copy validated fields onto scale_set (unsaved) and return its levels as unsaved rows."""
     _check_levels(data)
+    _check_rate_bands(data)
+    scale_set.occurrence_rate_basis = data.get("occurrence_rate_basis")
     scale_set.name = data["name"]
     scale_set.description = data.get("description", scale_set.description or "")
     for dimension in RATING_DIMENSIONS:
@@ -67,7 +103,13 @@ def _apply(scale_set, data):
     )
     _check_defaults(scale_set)
     return [
-        ScaleLevel(dimension=dimension, value=level["value"], label=level["label"], criteria=level.get("criteria", ""))
+        ScaleLevel(
+            dimension=dimension,
+            value=level["value"],
+            label=level["label"],
+            criteria=level.get("criteria", ""),
+            rate_from=level.get("rate_from"),
+        )
         for dimension in RATING_DIMENSIONS
         for level in sorted(data[dimension]["levels"], key=lambda level: level["value"])
     ]
@@ -120,7 +162,10 @@ def scale_set_view(scale_set, in_use=None):
         in_use = scale_set.builtin or bool(ScaleSet.in_use_ids([scale_set.id]))
     levels = {dimension: [] for dimension in RATING_DIMENSIONS}
     for level in scale_set.levels.order_by(ScaleLevel.dimension, ScaleLevel.value):
-        levels[level.dimension].append({"value": level.value, "label": level.label, "criteria": level.criteria})
+        entry = {"value": level.value, "label": level.label, "criteria": level.criteria}
+        if level.dimension == "occurrence":
+            entry["rate_from"] = level.rate_from
+        levels[level.dimension].append(entry)
     view = {
         "id": scale_set.id,
         "name": scale_set.name,
@@ -129,6 +174,7 @@ def scale_set_view(scale_set, in_use=None):
         "default_action_threshold": scale_set.default_action_threshold,
         "default_severity_threshold": scale_set.default_severity_threshold,
         "max_rpn": scale_set.max_rpn,
+        "occurrence_rate_basis": scale_set.occurrence_rate_basis,
         "in_use": in_use,
         "version": scale_set.version,
         "created_at": scale_set.created_at,

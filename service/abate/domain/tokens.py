@@ -3,15 +3,27 @@
 import datetime
 import hashlib
 import secrets
+import time
 
 from abate.domain.clock import utcnow
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
 from abate.models import ApiToken
+from abate.prepared import PreparedSelect
 
 ROLES = ("reader", "editor", "admin")
 SECRET_PREFIX = "abt_"
 # last_used_at is written at most this often per token, so reads do not all turn into writes.
 LAST_USED_RESOLUTION = datetime.timedelta(minutes=1)
+# A live token, once found, is believed live this many seconds without asking the database again. A
+# revocation in this process takes effect at once; one made elsewhere (the CLI, another instance) within this.
+TRUST_SECONDS = 2.0
+
+_LIVE_TOKEN_BY_HASH = PreparedSelect(
+    ApiToken,
+    lambda secret_hash: ApiToken.select().where((ApiToken.secret_hash == secret_hash) & ApiToken.revoked_at.is_null()),
+)
+# secret hash -> (live token, time.monotonic() when the database last said so); unknown secrets never enter.
+_recently_live = {}
 
 
 def hash_secret(secret):
@@ -30,9 +42,22 @@ def create_token(name, role):
     return row, secret
 
 
+def _live_token(secret_hash):
+    checked = time.monotonic()
+    known = _recently_live.get(secret_hash)
+    if known is not None and checked - known[1] < TRUST_SECONDS:
+        return known[0]
+    token = _LIVE_TOKEN_BY_HASH.first(secret_hash)
+    if token is None:
+        _recently_live.pop(secret_hash, None)
+    else:
+        _recently_live[secret_hash] = (token, checked)
+    return token
+
+
 def authenticate(secret, now=None):
-    """The live token with this secret, its last use noted; None for an unknown or revoked one."""
-    token = ApiToken.get_or_none((ApiToken.secret_hash == hash_secret(secret)) & ApiToken.revoked_at.is_null())
+    """The live token with this secret, its last use noted; None for an unknown or revoked one (TRUST_SECONDS)."""
+    token = _live_token(hash_secret(secret))
     if token is None:
         return None
     now = now or utcnow()
@@ -57,6 +82,7 @@ def revoke_token(token_id):
         raise Conflict(f"token {token_id} is already revoked")
     token.revoked_at = utcnow()
     token.save()
+    _recently_live.pop(token.secret_hash, None)
     return token
 
 

@@ -25,6 +25,7 @@ EVENT_TYPES = (
     "action.reopened",
     "action.overdue",
     "mode.rerated",
+    "mode.occurrence_drift",
     "study.risk_changed",
 )
 DELIVERY_STATUSES = ("pending", "delivered", "failed", "disabled")
