@@ -19,6 +19,11 @@ SETTINGS = {
     ),
     "DB_POOL_SIZE": (10, "Database connections kept per service process."),
     "DB_POOL_TIMEOUT": (10, "Seconds to wait for a free pooled database connection."),
+    "DB_SERVER_PREPARE": (
+        True,
+        "PostgreSQL: prepare the hottest lookups on the server once per connection; "
+        "false behind a proxy that pools by transaction.",
+    ),
     "SQLITE_BUSY_TIMEOUT": (15, "SQLite: seconds a writer waits for the write lock."),
     "REMINDER_TIME": ("07:00", "Local time (HH:MM) of the daily reminder run."),
     "REMINDER_TIMEZONE": ("UTC", "IANA time zone of REMINDER_TIME; the digest's day is the date there."),

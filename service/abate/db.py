@@ -1,11 +1,15 @@
 """The database proxy, how a URL becomes a connection, per-request connections, migrations."""
 
 import importlib
+import itertools
 import pkgutil
+import sqlite3
+import time
 from pathlib import Path
 from urllib.parse import parse_qsl, unquote, urlsplit
 
 import peewee
+import psycopg2.extensions
 from flask import request
 from playhouse.migrate import SchemaMigrator
 from playhouse.pool import PooledPostgresqlDatabase, PooledSqliteDatabase
@@ -15,12 +19,55 @@ from abate.domain.clock import utcnow
 #: Bound to a real database by the app factory, the CLI or a test; unbound at import.
 database = peewee.DatabaseProxy()
 
+# Numbers the databases this process is bound to, one after another (tests bind many).
+_bindings = itertools.count(1)
+
 # A fixed number so that every instance migrating the same PostgreSQL database waits for the others.
 _MIGRATION_LOCK_KEY = 0x4AB47E
 
 
 class UnsupportedDatabaseURL(ValueError):
     """The database URL names a scheme Abate does not run on."""
+
+
+class RestingPostgresPool(PooledPostgresqlDatabase):
+    """A PostgreSQL pool that asks the server whether a connection still lives only after it has rested.
+
+    peewee's pool sends SELECT 1 on every check-out, a round trip that costs a cached read as much again.
+    A connection handed back less than PING_AFTER_REST seconds ago is trusted; if the server went away
+    meanwhile, that request's first query fails (503) and the broken connection is not reused.
+    """
+
+    PING_AFTER_REST = 1.0
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self._returned_at = {}
+
+    def _is_closed(self, conn):
+        rested = time.monotonic() - self._returned_at.pop(self.conn_key(conn), float("-inf"))
+        if (
+            not conn.closed
+            and rested < self.PING_AFTER_REST
+            and self._adapter.txn_status(conn) == self._adapter.txn_idle
+        ):
+            return False
+        return super()._is_closed(conn)
+
+    def _close(self, conn, close_conn=False):
+        with self._pool_lock:
+            super()._close(conn, close_conn)
+            if not conn.closed:
+                self._returned_at[self.conn_key(conn)] = time.monotonic()
+
+
+class PreparingConnection(psycopg2.extensions.connection):
+    """A psycopg2 connection that remembers the statements prepared on its server session (prepared.py)."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        # A session's prepared statements outlive a rollback; they end with the connection.
+        self.prepared_statements = set()
 
 
 def open_database(url, config):
@@ -51,7 +98,8 @@ def open_database(url, config):
             lock_type="IMMEDIATE",
         )
     if parts.scheme in ("postgresql", "postgres"):
-        return PooledPostgresqlDatabase(
+        extra = {"connection_factory": PreparingConnection} if config["DB_SERVER_PREPARE"] else {}
+        return RestingPostgresPool(
             unquote(parts.path.lstrip("/")),
             user=unquote(parts.username) if parts.username else None,
             password=unquote(parts.password) if parts.password else None,
@@ -60,6 +108,7 @@ def open_database(url, config):
             max_connections=int(config["DB_POOL_SIZE"]),
             timeout=int(config["DB_POOL_TIMEOUT"]),
             stale_timeout=300,
+            **extra,
             **dict(parse_qsl(parts.query)),
         )
     raise UnsupportedDatabaseURL(f"unsupported database URL scheme {parts.scheme!r}; use sqlite or postgresql")
@@ -68,8 +117,19 @@ def open_database(url, config):
 def bind(url, config):
     """Point the proxy at the database behind url and return that database."""
     concrete = open_database(url, config)
+    concrete.binding_number = next(_bindings)
     database.initialize(concrete)
     return concrete
+
+
+def binding_number():
+    """Which of the databases this process has been bound to is bound now: caches of rows keep them apart."""
+    return getattr(database.obj, "binding_number", 0)
+
+
+def updates_return_rows():
+    """Whether UPDATE ... RETURNING runs on the bound database: PostgreSQL, and SQLite from 3.35."""
+    return not isinstance(database.obj, peewee.SqliteDatabase) or sqlite3.sqlite_version_info >= (3, 35)
 
 
 def lock_for_update(query):

@@ -115,6 +115,9 @@ class Study(BaseModel):
     external_key = pw.CharField(max_length=200, null=True)
     # Count of risk events so far; a study's ETag changes with it.
     risk_revision = pw.IntegerField(default=0)
+    # Count of write transactions that locked the study: anything in it (a mode's text, an action's
+    # target) may have changed since a view was built at another count.
+    content_revision = pw.IntegerField(default=0)
     # Quantitative criticality (MIL-STD-1629A Task 102): off unless switched on, with the study's own
     # map from severity ratings to classes I..IV as JSON ({"I": [9, 10], ...}).
     criticality_enabled = pw.BooleanField(default=False)

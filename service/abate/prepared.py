@@ -3,12 +3,21 @@
 Peewee renders a query's SQL anew on every execution, which for a model of twenty columns costs more
 than the database takes to answer a lookup by key. A PreparedSelect keeps the rendered SQL and the
 fields it selects, and turns each row into a model instance as peewee's own cursor wrapper does, only
-faster (RowBuilder); fetch_all() does the same for any other query of whole rows.
+faster (RowBuilder); fetch_all() does the same for any other query of whole rows. On PostgreSQL a
+lookup by a few values is also prepared on the server once per connection (ServerStatement).
 """
+
+import itertools
+import re
 
 import peewee
 
 from abate.db import database
+
+# On PostgreSQL a SELECT of up to this many values is also prepared on the server, once per connection,
+# which spares the server parsing and planning it on every run (a lookup by key costs half as much).
+_PREPARED_ON_SERVER_UP_TO = 4
+_statement_numbers = itertools.count(1)
 
 # Stand-ins for the values, recognisable among the rendered parameters; no real id or text is like them.
 _INTEGER_MARKER = -7_340_033_000_000_000
@@ -45,22 +54,70 @@ class PreparedSelect:
             positions = [index for marker in markers for index, param in enumerate(params) if param == marker]
             if len(positions) != len(markers):
                 raise ValueError("each value of a prepared SELECT must reach its SQL as exactly one parameter")
+            statement = ServerStatement(sql, len(params)) if len(values) <= _PREPARED_ON_SERVER_UP_TO else None
             # Two threads may both render the same SQL; either result serves.
-            rendered = self._rendered[key] = (sql, params, positions, RowBuilder(self.model, query._returning))
+            rendered = self._rendered[key] = (
+                sql,
+                params,
+                positions,
+                RowBuilder(self.model, query._returning),
+                statement,
+            )
         return rendered
 
     def rows(self, *values):
         """The model instances the SELECT yields for these values."""
-        sql, params, positions, builder = self._render(values)
+        sql, params, positions, builder, statement = self._render(values)
         bound = list(params)
         for position, value in zip(positions, values, strict=True):
             bound[position] = value
-        return builder.instances(database.execute_sql(sql, bound).fetchall())
+        connection = database.connection()
+        if statement is not None and hasattr(connection, "prepared_statements"):
+            cursor = statement.execute(connection, bound)
+        else:
+            cursor = database.execute_sql(sql, bound)
+        return builder.instances(cursor.fetchall())
 
     def first(self, *values):
         """The first instance the SELECT yields for these values, or None."""
         found = self.rows(*values)
         return found[0] if found else None
+
+
+class ServerStatement:
+    """One SELECT prepared by name on each PostgreSQL session that runs it (db.PreparingConnection).
+
+    A statement the server will not prepare (say, a parameter whose type it cannot infer) is run as
+    plain SQL from then on; preparing happens in a savepoint, so a refusal spoils no transaction.
+    The statement is planned anew by the server when a migration changes a table it reads.
+    """
+
+    def __init__(self, sql, parameters):
+        self.sql = sql
+        self.name = f"abate_select_{next(_statement_numbers)}"
+        numbers = itertools.count(1)
+        # peewee writes %s per parameter and %% for a literal %, which the driver turns back into %.
+        self._prepare = f"PREPARE {self.name} AS " + re.sub(
+            r"%%|%s", lambda found: found.group() if found.group() == "%%" else f"${next(numbers)}", sql
+        )
+        self._execute = (
+            f"EXECUTE {self.name}({', '.join(['%s'] * parameters)})" if parameters else f"EXECUTE {self.name}"
+        )
+        self.refused = False
+
+    def execute(self, connection, bound):
+        """Run the statement with bound values on connection (the database's current one); return the cursor."""
+        if self.refused:
+            return database.execute_sql(self.sql, bound)
+        if self.name not in connection.prepared_statements:
+            try:
+                with database.atomic():
+                    database.execute_sql(self._prepare)
+            except peewee.ProgrammingError:
+                self.refused = True
+                return database.execute_sql(self.sql, bound)
+            connection.prepared_statements.add(self.name)
+        return database.execute_sql(self._execute, bound)
 
 
 # Field kinds whose python_value returns a value of this type as it is (peewee's own adapt methods).

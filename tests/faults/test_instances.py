@@ -96,6 +96,21 @@ def test_closes_of_one_action_through_two_instances_succeed_once(instances):
     assert instances.clients[1].actions.get(read.id).status == "closed"
 
 
+def test_a_read_kept_by_one_instance_shows_a_write_made_through_the_other_at_once(instances):
+    reader, writer = instances.clients
+    study, mode = instances.study, instances.mode
+    # Read twice, so that the reader's process serves its kept JSON from then on.
+    for _ in range(2):
+        kept, listed = reader.modes.get(mode.id), list(reader.modes.list(study.id))
+    assert kept.open_actions == 0 and [item.id for item in listed] == [mode.id]
+    writer.modes.update(writer.modes.get(mode.id), effect="Seal weeps at the flange")
+    open_action(writer, mode, title="Flange torque check", target={"occurrence": 2})
+    after = reader.modes.get(mode.id)
+    assert after.effect == "Seal weeps at the flange" and after.open_actions == 1 and after.version == kept.version + 1
+    [listed_after] = list(reader.modes.list(study.id))
+    assert listed_after.open_actions == 1 and listed_after.projected.occurrence == 2
+
+
 def _rerate_until_mailed(client, mode, smtp_server):
     """Re-rate mode through client until every digest is out; once the first is, run the reminder job here too."""
     deadline = time.monotonic() + MAILING_SECONDS

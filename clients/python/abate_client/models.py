@@ -112,7 +112,12 @@ class Study(_FromJson):
 class Mode(_FromJson):
     """A failure mode with its current ratings, scores and the ratings it was created with."""
 
-    converters: ClassVar[dict] = {**_TIMESTAMPS, "retired_at": _timestamp, "initial": Ratings.from_json}
+    converters: ClassVar[dict] = {
+        **_TIMESTAMPS,
+        "retired_at": _timestamp,
+        "initial": Ratings.from_json,
+        "projected": lambda value: None if value is None else Ratings.from_json(value),
+    }
 
     id: int
     study_id: int
@@ -137,6 +142,10 @@ class Mode(_FromJson):
     created_at: datetime.datetime
     updated_at: datetime.datetime
     retired_at: datetime.datetime | None
+    # Per rating the lowest of current and the open actions' targets, and how many actions are open
+    # (None in a list of how the modes stood at a past moment).
+    projected: Ratings | None = None
+    open_actions: int | None = None
     etag: str | None = None
 
 

@@ -154,6 +154,9 @@ def _unstorable_strings(value, location, path=""):
 
 def _refuse_unstorable_text():
     """422 for text PostgreSQL cannot hold (NUL) or UTF-8 cannot encode, on every database alike."""
+    path_values = (request.view_args or {}).values()
+    if request.method not in BODY_METHODS and not request.args and not any(isinstance(v, str) for v in path_values):
+        return  # nothing that carries text: a read by numeric ids
     found = [
         *_unstorable_strings(request.view_args or {}, "path"),
         *_unstorable_strings(request.args.to_dict(flat=False), "query"),

@@ -4,7 +4,7 @@ import datetime
 from urllib.parse import urlencode
 
 import marshmallow as ma
-from flask import request
+from flask import current_app, request
 from werkzeug.routing import IntegerConverter
 
 from abate.api.dumping import PlannedDump
@@ -124,14 +124,38 @@ def list_schema(item_schema):
     )
 
 
+def next_page_url(next_cursor):
+    """The URL of the request's next page at next_cursor (None on the last page)."""
+    if not next_cursor:
+        return None
+    params = [(key, value) for key, value in request.args.items(multi=True) if key != "cursor"]
+    return f"{request.base_url}?{urlencode(params + [('cursor', next_cursor)])}"
+
+
 def page_of(query, order, args, to_views):
     """Paginate query by the request's limit and cursor; return the list envelope."""
     page = paginate(query, order, args["limit"], args.get("cursor"))
-    next_url = None
-    if page.next_cursor:
-        params = [(key, value) for key, value in request.args.items(multi=True) if key != "cursor"]
-        next_url = f"{request.base_url}?{urlencode(params + [('cursor', page.next_cursor)])}"
-    return {"items": to_views(page.rows), "next": next_url}
+    return {"items": to_views(page.rows), "next": next_page_url(page.next_cursor)}
+
+
+def json_bytes(dumped):
+    """A dumped document as the JSON bytes a route's own response would carry."""
+    return current_app.json.response(dumped).get_data()
+
+
+def json_pieces(dumped, mark):
+    """A dumped document's JSON bytes cut where the string mark stands, for a value known only later."""
+    return json_bytes(dumped).split(current_app.json.dumps(mark).encode())
+
+
+def json_joined(pieces, value):
+    """The pieces of json_pieces joined with value's JSON where the mark stood."""
+    return current_app.json.dumps(value).encode().join(pieces)
+
+
+def serialized_response(body, headers=None):
+    """A 200 response of JSON bytes serialized earlier (flask-smorest passes a Response on as it is)."""
+    return current_app.response_class(body, mimetype=current_app.json.mimetype, headers=headers)
 
 
 def etag(tag):

@@ -1,11 +1,11 @@
 """/v1/studies/{id}/history and /v1/history: how risk fell over time, and where it is heading."""
 
 import marshmallow as ma
-from flask import Response, current_app
+from flask import Response
 from flask.views import MethodView
 from flask_smorest import Blueprint
 
-from abate.api.common import DATE_RANGE, UTCDateTime
+from abate.api.common import DATE_RANGE, UTCDateTime, json_joined, json_pieces, serialized_response
 from abate.domain import charts, history, observed_rates
 from abate.domain.caching import BoundedCache
 from abate.domain.clock import local_today, utcnow
@@ -233,8 +233,7 @@ def _now_marked(dumped):
 def _serialized_pieces(study, args, now):
     """The document's JSON as jsonify writes it, in byte pieces between which now is stamped."""
     dumped = StudyHistorySchema().dump(study_history(study, args, now))
-    marked = current_app.json.response(_now_marked(dumped)).get_data()
-    return marked.split(current_app.json.dumps(_NOW_MARK).encode())
+    return json_pieces(_now_marked(dumped), _NOW_MARK)
 
 
 def history_json(study, args, now):
@@ -242,8 +241,7 @@ def history_json(study, args, now):
     pieces = _serialized_documents.get_or_compute(
         _document_key(study, args, now), lambda: _serialized_pieces(study, args, now)
     )
-    stamp = current_app.json.dumps(_NOW_FIELD.serialize("at", {"at": now})).encode()
-    return stamp.join(pieces)
+    return json_joined(pieces, _NOW_FIELD.serialize("at", {"at": now}))
 
 
 def history_response(study_id, args):
@@ -252,7 +250,7 @@ def history_response(study_id, args):
     now = utcnow()
     if args.get("modes"):
         return study_history(study, args, now)
-    return current_app.response_class(history_json(study, args, now), mimetype=current_app.json.mimetype)
+    return serialized_response(history_json(study, args, now))
 
 
 @blp.route("/studies/<int:study_id>/history")

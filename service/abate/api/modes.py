@@ -16,16 +16,23 @@ from abate.api.common import (
     UTCDateTime,
     etag,
     if_match_tags,
+    json_bytes,
+    json_joined,
+    json_pieces,
     list_schema,
+    next_page_url,
     page_of,
+    serialized_response,
 )
 from abate.api.criticality import ModeFiguresSchema, ModeInputsSchema
 from abate.api.dumping import PlannedDump
 from abate.api.studies import RatingsSchema
 from abate.domain import modes
+from abate.domain.caching import BoundedCache
+from abate.domain.pagination import paginate
 from abate.domain.scoring import PRIORITY_BANDS
-from abate.domain.studies import get_study
-from abate.domain.versions import mode_tag
+from abate.domain.studies import get_study, study_state
+from abate.domain.versions import content_key, mode_tag
 from abate.errors import ValidationFailed, field_error
 
 blp = Blueprint("modes", __name__, url_prefix="/v1", description="Failure modes")
@@ -109,6 +116,51 @@ class ModeQueryArgsSchema(PageArgsSchema):
     )
 
 
+ModeListSchema = list_schema(ModeSchema)
+_MODE_SCHEMA, _MODE_LIST_SCHEMA = ModeSchema(), ModeListSchema()
+
+# Reads are served from JSON serialized once per state of the study: nothing a mode's view shows can change
+# without moving the study's content key (domain.versions.content_key), which one lookup reads. A view
+# computed after a write that raced the lookup is newer than its key, never older.
+_serialized_modes = BoundedCache(entries=4096)
+_serialized_pages = BoundedCache(entries=256)
+# Stands in for the next page's URL, which depends on the request's own URL, while a page is serialized.
+_NEXT_MARK = "\x00next\x00"
+
+
+def _serialized_mode(mode_id, study_id):
+    study, mode = get_study(study_id), modes.get_mode(mode_id)
+    return json_bytes(_MODE_SCHEMA.dump(modes.mode_views([mode], study)[0])), etag(mode_tag(mode, study))
+
+
+def mode_read_response(mode_id):
+    """GET of one mode: its serialized view and ETag, after one lookup of its study's state when it is known."""
+    state = modes.study_state_of_mode(mode_id)
+    body, tag = _serialized_modes.get_or_compute(
+        (mode_id, content_key(state)), lambda: _serialized_mode(mode_id, state.id)
+    )
+    return serialized_response(body, {"ETag": tag})
+
+
+def _serialized_page(study_id, filters, order, args):
+    study = get_study(study_id)
+    page = paginate(modes.modes_query(study, *filters), order, args["limit"], args.get("cursor"))
+    dumped = _MODE_LIST_SCHEMA.dump({"items": modes.mode_views(page.rows, study), "next": _NEXT_MARK})
+    return json_pieces(dumped, _NEXT_MARK), page.next_cursor
+
+
+def mode_list_response(study_id, args):
+    """A page of a study's current modes, serialized once per state of the study and page arguments."""
+    state = study_state(study_id)
+    filters = tuple(args.get(name) for name in ("status", "needs_action", "priority", "min_rpn"))
+    sort = args.get("sort", "-rpn")
+    key = (content_key(state), filters, sort, args["limit"], args.get("cursor"))
+    pieces, next_cursor = _serialized_pages.get_or_compute(
+        key, lambda: _serialized_page(study_id, filters, modes.MODE_SORTS[sort], args)
+    )
+    return serialized_response(json_joined(pieces, next_page_url(next_cursor)))
+
+
 def mode_response(mode, status=200):
     """The mode's view, status and ETag (and Location when created)."""
     study = get_study(mode.study_id)
@@ -137,18 +189,14 @@ def _modes_as_of(study_id, args):
 class StudyModes(MethodView):
     """A study's failure modes."""
 
-    @blp.arguments(ModeQueryArgsSchema, location="query", unknown=ma.RAISE)
-    @blp.response(200, list_schema(ModeSchema))
+    # One schema instance for every request: building one per request costs more than a served page.
+    @blp.arguments(ModeQueryArgsSchema(), location="query", unknown=ma.RAISE)
+    @blp.response(200, ModeListSchema)
     def get(self, args, study_id):
         """List a study's modes, highest RPN first unless sort says otherwise; as_of lists them as they were."""
         if "as_of" in args:
             return _modes_as_of(study_id, args)
-        study = get_study(study_id)
-        query = modes.modes_query(
-            study, args.get("status"), args.get("needs_action"), args.get("priority"), args.get("min_rpn")
-        )
-        order = modes.MODE_SORTS[args.get("sort", "-rpn")]
-        return page_of(query, order, args, lambda rows: modes.mode_views(rows, study))
+        return mode_list_response(study_id, args)
 
     @blp.arguments(ModeSchema)
     @blp.response(201, ModeSchema)
@@ -165,7 +213,7 @@ class ModeById(MethodView):
     @blp.response(200, ModeSchema)
     def get(self, mode_id):
         """Read a mode."""
-        return mode_response(modes.get_mode(mode_id))
+        return mode_read_response(mode_id)
 
     @blp.arguments(ModePatchSchema)
     @blp.response(200, ModeSchema)

@@ -5,7 +5,7 @@ import json
 
 import peewee as pw
 
-from abate.db import lock_for_update
+from abate import db
 from abate.domain import fmeca, observed_rates, webhooks
 from abate.domain.clock import utcnow
 from abate.domain.scoring import RiskPolicy, needs_action_reasons
@@ -36,8 +36,18 @@ CLOCK_SKEW = datetime.timedelta(minutes=5)
 
 
 def lock_study(study_id):
-    """Re-read the study holding its row lock, so writers to one study never interleave totals."""
-    study = lock_for_update(Study.select().where(Study.id == study_id)).first()
+    """Re-read the study holding its row lock, so writers to one study never interleave totals.
+
+    Every write to a study's modes and actions begins here, so this is where its content revision moves
+    (one UPDATE ... RETURNING, where the database has it, both takes the lock and reads the row); a
+    rollback takes the move back.
+    """
+    bump = Study.update(content_revision=Study.content_revision + 1).where(Study.id == study_id)
+    if db.updates_return_rows():
+        study = next(iter(bump.returning(*Study._meta.sorted_fields).objects(Study).execute()), None)
+    else:
+        bump.execute()
+        study = Study.select().where(Study.id == study_id).first()
     if study is None:
         raise NotFound(f"study {study_id} does not exist")
     return study

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 import peewee as pw
 
+from abate.db import binding_number
 from abate.domain.caching import BoundedCache
 from abate.domain.clock import utcnow
 from abate.domain.events import CAUSES
@@ -207,7 +208,7 @@ _completed_points_cache = BoundedCache()
 def revision_key(study):
     """What names one state of a study's risk record; the creation instant tells apart a study that
     reuses an id (in another database of the same process, or after a deletion)."""
-    return study.id, study.created_at, study.risk_revision
+    return binding_number(), study.id, study.created_at, study.risk_revision
 
 
 def _cached_completed_points(study, completed):

@@ -8,10 +8,10 @@ from abate.domain.history import as_of_lookup, ratings_as_of
 from abate.domain.references import reference_view, set_reference
 from abate.domain.scales import check_ratings
 from abate.domain.scoring import Ratings, assess, projected_ratings
-from abate.domain.studies import get_study, policy_of, require_open_for_changes
+from abate.domain.studies import STATE_FIELDS, get_study, policy_of, require_open_for_changes
 from abate.domain.versions import check_precondition, mode_tag, save_new_version
 from abate.errors import Conflict, NotFound, ValidationFailed, field_error
-from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode
+from abate.models import RATING_DIMENSIONS, CorrectiveAction, FailureMode, Study
 from abate.prepared import PreparedSelect
 
 TEXT_FIELDS = (
@@ -31,6 +31,12 @@ MODE_SORTS = {
 
 
 _MODE_BY_ID = PreparedSelect(FailureMode, lambda mode_id: FailureMode.select().where(FailureMode.id == mode_id))
+_STUDY_STATE_OF_MODE = PreparedSelect(
+    Study,
+    lambda mode_id: Study.select(*STATE_FIELDS).where(
+        Study.id == FailureMode.select(FailureMode.study).where(FailureMode.id == mode_id)
+    ),
+)
 _UNFINISHED_ACTIONS_OF_MODES = PreparedSelect(
     CorrectiveAction,
     lambda *mode_ids: CorrectiveAction.select().where(
@@ -45,6 +51,14 @@ def get_mode(mode_id):
     if mode is None:
         raise NotFound(f"failure mode {mode_id} does not exist")
     return mode
+
+
+def study_state_of_mode(mode_id):
+    """The state of the study holding this mode (studies.study_state), in one lookup; NotFound for the mode."""
+    state = _STUDY_STATE_OF_MODE.first(mode_id)
+    if state is None:
+        raise NotFound(f"failure mode {mode_id} does not exist")
+    return state
 
 
 def ratings_of(mode):

@@ -33,6 +33,9 @@ _PLAIN_FIELDS = ("title", "kind", "scope", "site", "product_line", "timezone")
 
 
 _STUDY_BY_ID = PreparedSelect(Study, lambda study_id: Study.select().where(Study.id == study_id))
+# The fields that name one state of a study (versions.content_key): all a cached view needs to check.
+STATE_FIELDS = (Study.id, Study.created_at, Study.version, Study.risk_revision, Study.content_revision)
+_STUDY_STATE_BY_ID = PreparedSelect(Study, lambda study_id: Study.select(*STATE_FIELDS).where(Study.id == study_id))
 
 
 def get_study(study_id):
@@ -41,6 +44,14 @@ def get_study(study_id):
     if study is None:
         raise NotFound(f"study {study_id} does not exist")
     return study
+
+
+def study_state(study_id):
+    """The study with only its STATE_FIELDS read, or NotFound: enough to tell whether a cached view is current."""
+    state = _STUDY_STATE_BY_ID.first(study_id)
+    if state is None:
+        raise NotFound(f"study {study_id} does not exist")
+    return state
 
 
 def policy_of(study):

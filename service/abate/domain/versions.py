@@ -1,5 +1,6 @@
 """Entity tags and optimistic concurrency: a write names the representation it was based on."""
 
+from abate.db import binding_number
 from abate.domain.clock import local_today, utcnow
 from abate.errors import PreconditionFailed, PreconditionRequired
 
@@ -12,6 +13,15 @@ def scale_set_tag(scale_set):
 def study_tag(study):
     """A study's representation changes with its own version and with every risk event."""
     return f"{study.version}.{study.risk_revision}"
+
+
+def content_key(study):
+    """What names one state of everything a study holds: its fields, modes and actions.
+
+    Every write to them locks the study and so moves its content revision (events.lock_study); the
+    binding and the creation instant tell apart studies of one id in different databases.
+    """
+    return binding_number(), study.id, study.created_at, study.version, study.risk_revision, study.content_revision
 
 
 def mode_tag(mode, study):
