@@ -1,6 +1,7 @@
 """Rows built by abate.prepared are the instances peewee itself would build, on each database."""
 
 import peewee
+import pytest
 
 from abate import db
 from abate.domain.tokens import authenticate, create_token, revoke_token
@@ -55,6 +56,13 @@ def test_a_token_revoked_in_this_process_is_refused_at_once(connection):
 _UNTYPED_PARAMETER = PreparedSelect(Study, lambda value: Study.select().where(peewee.Value(value).is_null(False)))
 
 
+@pytest.fixture
+def postgres_app(postgres_schema_url, tmp_path):
+    """Build the app on a fresh PostgreSQL schema with the given settings; its pool is closed afterwards."""
+    yield lambda **settings: build_app(postgres_schema_url, tmp_path, **settings)
+    close_pool()
+
+
 def _statement_of(prepared, *value_types):
     """The ServerStatement that prepared renders for the bound database and these kinds of value."""
     return prepared._rendered[(type(db.database.obj), value_types)][-1]
@@ -64,53 +72,42 @@ def _server_statements():
     return {row[0] for row in db.database.execute_sql("SELECT name FROM pg_prepared_statements").fetchall()}
 
 
-def test_on_postgresql_a_lookup_is_prepared_once_per_connection_and_answers_as_plain_sql(postgres_schema_url, tmp_path):
-    app = build_app(postgres_schema_url, tmp_path)
-    try:
-        client = authorised_client(app, _admin_secret())
-        make_study(client, title="Prepared on the server")
-        with db.database.connection_context():
-            connection = db.database.connection()
-            assert isinstance(connection, db.PreparingConnection)
-            [found] = _STUDY_BY_TITLE.rows("Prepared on the server")
-            statement = _statement_of(_STUDY_BY_TITLE, str)
-            assert statement.name in connection.prepared_statements and statement.name in _server_statements()
-            assert _state([found]) == _state([Study.get(Study.title == "Prepared on the server")])
-            # A statement prepared in a transaction that rolls back stays prepared (PostgreSQL PREPARE docs).
-            with db.database.atomic() as transaction:
-                _MODE_OF_STUDY.rows(found.id)
-                transaction.rollback()
-            assert _statement_of(_MODE_OF_STUDY, int).name in _server_statements()
-            assert _MODE_OF_STUDY.rows(found.id) == []
-    finally:
-        close_pool()
+def test_on_postgresql_a_lookup_is_prepared_once_per_connection_and_answers_as_plain_sql(postgres_app):
+    app = postgres_app()
+    client = authorised_client(app, _admin_secret())
+    make_study(client, title="Prepared on the server")
+    with db.database.connection_context():
+        connection = db.database.connection()
+        assert isinstance(connection, db.PreparingConnection)
+        [found] = _STUDY_BY_TITLE.rows("Prepared on the server")
+        statement = _statement_of(_STUDY_BY_TITLE, str)
+        assert statement.name in connection.prepared_statements and statement.name in _server_statements()
+        assert _state([found]) == _state([Study.get(Study.title == "Prepared on the server")])
+        # A statement prepared in a transaction that rolls back stays prepared (PostgreSQL PREPARE docs).
+        with db.database.atomic() as transaction:
+            _MODE_OF_STUDY.rows(found.id)
+            transaction.rollback()
+        assert _statement_of(_MODE_OF_STUDY, int).name in _server_statements()
+        assert _MODE_OF_STUDY.rows(found.id) == []
 
 
-def test_a_statement_the_server_will_not_prepare_runs_as_plain_sql_and_spoils_no_transaction(
-    postgres_schema_url, tmp_path
-):
-    app = build_app(postgres_schema_url, tmp_path)
-    try:
-        make_study(authorised_client(app, _admin_secret()), title="Untyped")
-        with db.database.connection_context(), db.database.atomic():
-            assert [study.title for study in _UNTYPED_PARAMETER.rows(7)] == ["Untyped"]
-            statement = _statement_of(_UNTYPED_PARAMETER, int)
-            assert statement.refused and statement.name not in _server_statements()
-            assert Study.select().count() == 1  # the transaction goes on
-    finally:
-        close_pool()
+def test_a_statement_the_server_will_not_prepare_runs_as_plain_sql_and_spoils_no_transaction(postgres_app):
+    app = postgres_app()
+    make_study(authorised_client(app, _admin_secret()), title="Untyped")
+    with db.database.connection_context(), db.database.atomic():
+        assert [study.title for study in _UNTYPED_PARAMETER.rows(7)] == ["Untyped"]
+        statement = _statement_of(_UNTYPED_PARAMETER, int)
+        assert statement.refused and statement.name not in _server_statements()
+        assert Study.select().count() == 1  # the transaction goes on
 
 
-def test_server_preparing_can_be_switched_off_for_a_transaction_pooling_proxy(postgres_schema_url, tmp_path):
-    app = build_app(postgres_schema_url, tmp_path, DB_SERVER_PREPARE=False)
-    try:
-        make_study(authorised_client(app, _admin_secret()), title="Plain")
-        with db.database.connection_context():
-            assert not hasattr(db.database.connection(), "prepared_statements")
-            assert [study.title for study in _STUDY_BY_TITLE.rows("Plain")] == ["Plain"]
-            assert not {name for name in _server_statements() if name.startswith("abate_")}
-    finally:
-        close_pool()
+def test_server_preparing_can_be_switched_off_for_a_transaction_pooling_proxy(postgres_app):
+    app = postgres_app(DB_SERVER_PREPARE=False)
+    make_study(authorised_client(app, _admin_secret()), title="Plain")
+    with db.database.connection_context():
+        assert not hasattr(db.database.connection(), "prepared_statements")
+        assert [study.title for study in _STUDY_BY_TITLE.rows("Plain")] == ["Plain"]
+        assert not {name for name in _server_statements() if name.startswith("abate_")}
 
 
 def _admin_secret():
@@ -134,23 +131,20 @@ def _terminate(pid):
     admin.close()
 
 
-def test_a_pooled_connection_is_pinged_only_after_a_rest_and_a_dead_one_is_never_reused(postgres_schema_url, tmp_path):
-    app = build_app(postgres_schema_url, tmp_path, DB_POOL_SIZE=1)
-    try:
-        client = authorised_client(app, _admin_secret())
-        study = make_study(client)
-        pool = db.database.obj
-        # Handed back a moment ago: trusted without a round trip, so a server-side end shows as one 503 ...
-        with db.database.connection_context():
-            _terminate(_backend_pid())
-        response = client.get(f"/v1/studies/{study['id']}")
-        assert response.status_code == 503 and response.headers["Retry-After"]
-        # ... after which the broken connection is dropped and the next request gets a new one.
-        assert client.get(f"/v1/studies/{study['id']}").status_code == 200
-        # Rested longer than PING_AFTER_REST: pinged at check-out, so the end is noticed before any request fails.
-        with db.database.connection_context():
-            _terminate(_backend_pid())
-        pool.PING_AFTER_REST = 0
-        assert client.get(f"/v1/studies/{study['id']}").status_code == 200
-    finally:
-        close_pool()
+def test_a_pooled_connection_is_pinged_only_after_a_rest_and_a_dead_one_is_never_reused(postgres_app):
+    app = postgres_app(DB_POOL_SIZE=1)
+    client = authorised_client(app, _admin_secret())
+    study = make_study(client)
+    pool = db.database.obj
+    # Handed back a moment ago: trusted without a round trip, so a server-side end shows as one 503 ...
+    with db.database.connection_context():
+        _terminate(_backend_pid())
+    response = client.get(f"/v1/studies/{study['id']}")
+    assert response.status_code == 503 and response.headers["Retry-After"]
+    # ... after which the broken connection is dropped and the next request gets a new one.
+    assert client.get(f"/v1/studies/{study['id']}").status_code == 200
+    # Rested longer than PING_AFTER_REST: pinged at check-out, so the end is noticed before any request fails.
+    with db.database.connection_context():
+        _terminate(_backend_pid())
+    pool.PING_AFTER_REST = 0
+    assert client.get(f"/v1/studies/{study['id']}").status_code == 200
