@@ -12,6 +12,7 @@ import threading
 import pytest
 import requests
 from scipy.stats import chi2
+from test_actions import make_action
 
 from conftest import BUILTIN_1_10, make_mode, make_study, scale_id_named
 
@@ -181,15 +182,8 @@ def test_accepting_the_suggestion_re_rates_with_an_event_naming_the_observations
 def test_data_against_a_closed_prevention_action_marks_its_effect_not_confirmed(client):
     study = _observed_study(client)
     mode = make_mode(client, study["id"], 6, 6, 5)
-    action = client.post(
-        f"/v1/modes/{mode['id']}/actions",
-        json={
-            "title": "Add a guide pin",
-            "kind": "prevention",
-            "owner": {"name": "Ines Moreau", "email": "ines@example.com"},
-            "due_date": "2030-01-01",
-        },
-    ).get_json()
+    owner = {"name": "Ines Moreau", "email": "ines@example.com"}
+    action = make_action(client, mode["id"], title="Add a guide pin", owner=owner, due_date="2030-01-01")
     closed = client.post(f"/v1/actions/{action['id']}/close", json={"result": {"occurrence": 3}, "evidence": EVIDENCE})
     assert closed.status_code == 200, closed.get_json()
     effect_url = f"/v1/studies/{study['id']}/actions/effect"

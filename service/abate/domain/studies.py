@@ -34,7 +34,7 @@ _PLAIN_FIELDS = ("title", "kind", "scope", "site", "product_line", "timezone")
 
 _STUDY_BY_ID = PreparedSelect(Study, lambda study_id: Study.select().where(Study.id == study_id))
 # The fields that name one state of a study (versions.content_key): all a cached view needs to check.
-STATE_FIELDS = (Study.id, Study.created_at, Study.version, Study.risk_revision, Study.content_revision)
+STATE_FIELDS = (Study.id, Study.created_at, Study.content_revision)
 _STUDY_STATE_BY_ID = PreparedSelect(Study, lambda study_id: Study.select(*STATE_FIELDS).where(Study.id == study_id))
 
 

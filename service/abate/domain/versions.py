@@ -18,10 +18,11 @@ def study_tag(study):
 def content_key(study):
     """What names one state of everything a study holds: its fields, modes and actions.
 
-    Every write to them locks the study and so moves its content revision (events.lock_study); the
-    binding and the creation instant tell apart studies of one id in different databases.
+    Every write to them, its own version and risk revision included, locks the study and so moves its
+    content revision (events.lock_study); the binding and the creation instant tell apart studies of
+    one id in different databases.
     """
-    return binding_number(), study.id, study.created_at, study.version, study.risk_revision, study.content_revision
+    return binding_number(), study.id, study.created_at, study.content_revision
 
 
 def mode_tag(mode, study):
